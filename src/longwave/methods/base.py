@@ -1,0 +1,135 @@
+"""The one interface every inference method implements.
+
+A method turns ``(model, series)`` into a log marginal likelihood (with its
+gradient on request) and into a :class:`Posterior`. Callers (fitting, the
+survey and benchmark runners) use only this interface and never ask which
+method they hold. A method object holds configuration only; it keeps no
+state between calls, so one instance can serve many series and threads.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """One evaluation of a method's objective.
+
+    Attributes
+    ----------
+    value : float
+        Log marginal likelihood (or the method's approximation of it).
+    grad : ndarray of shape (p,) or None
+        Derivatives with respect to the free coordinates of the model's free
+        parameters (``log`` of positive parameters, the mean itself).
+    extras : dict of str to float
+        Method-specific figures (for sparse methods: certified bounds).
+    """
+
+    value: float
+    grad: np.ndarray | None = None
+    extras: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Prediction:
+    """Posterior mean and variance at a set of times.
+
+    Attributes
+    ----------
+    t, mean, var, std : ndarray of shape (n*,)
+        Query times (in the order given), posterior mean, variance and
+        standard deviation. Of the latent process ``mean + f`` by default, or
+        of a new observation when requested (variance plus noise).
+    """
+
+    t: np.ndarray
+    mean: np.ndarray
+    var: np.ndarray
+
+    @property
+    def std(self) -> np.ndarray:
+        return np.sqrt(self.var)
+
+
+class Posterior:
+    """Conditional distribution of the process given one series.
+
+    Subclasses implement :meth:`_latent`. Far from the data every posterior
+    returns to the prior (mean ``model.mean``, variance ``k(0)``): an
+    extrapolation is only as informative as the kernel's correlation length.
+    """
+
+    def __init__(self, model, series):
+        self.model = model
+        self.series = series
+
+    def predict(self, t, *, observed: bool = False, err=None) -> Prediction:
+        """Posterior at times ``t``.
+
+        Parameters
+        ----------
+        t : array_like of shape (n*,)
+            Any times, in any order; duplicates and times outside the data allowed.
+        observed : bool, default False
+            Predict a new observation (adds ``err^2 + excess_noise^2``) rather
+            than the latent process.
+        err : float or array_like of shape (n*,), optional
+            Measurement errors of the new observations (default 0).
+
+        Returns
+        -------
+        Prediction
+        """
+        t = np.asarray(t, dtype=np.float64)
+        if t.ndim != 1:
+            raise ValueError(f"t must be one-dimensional, got shape {t.shape}")
+        bad = np.flatnonzero(~np.isfinite(t))
+        if bad.size:
+            raise ValueError(f"t must be finite, found {t[bad[0]]} at index {bad[0]}")
+        mean, var = self._latent(t)
+        mean = mean + self.model.mean_value
+        if observed:
+            e = np.zeros(t.size) if err is None else np.broadcast_to(np.asarray(err, float), t.shape)
+            var = var + self.model.noise_variance(e)
+        return Prediction(t=t, mean=mean, var=var)
+
+    def _latent(self, t):
+        raise NotImplementedError
+
+
+class Method:
+    """Base class of inference methods; see the module docstring."""
+
+    name: str = "method"
+
+    def check(self, model, series) -> None:
+        """Raise ``ValueError`` if this method cannot handle ``(model, series)``."""
+
+    def evaluate(self, model, series, gradient: bool = False) -> Evaluation:
+        """Log marginal likelihood (and gradient over free coordinates)."""
+        raise NotImplementedError
+
+    def posterior(self, model, series) -> Posterior:
+        raise NotImplementedError
+
+    def describe(self) -> dict:
+        """Configuration as plain JSON-compatible values (for result files)."""
+        return {"name": self.name}
+
+    def __repr__(self) -> str:
+        args = ", ".join(f"{k}={v!r}" for k, v in self.describe().items() if k != "name")
+        return f"{type(self).__name__}({args})"
+
+
+def require_noise(model, series, method_name: str) -> None:
+    """A model with neither error bars nor excess noise has a singular likelihood."""
+    if not series.has_err and model.excess_noise is None:
+        raise ValueError(
+            f"{method_name}: the series has no error bars and the model no excess "
+            "noise, so the covariance is singular; pass err=... to Series or "
+            "excess_noise=... to Model"
+        )
