@@ -173,7 +173,8 @@ class Primitive(Kernel):
         return self._state_space(*self._values())
 
     def __repr__(self) -> str:
-        inner = ", ".join(f"{n}={p.value:.6g}" for n, p in zip(self.param_names_local, self._params))
+        pairs = zip(self.param_names_local, self._params)
+        inner = ", ".join(f"{n}={p.value:.6g}" for n, p in pairs)
         return f"{type(self).__name__}({inner})"
 
     # subclasses implement these

@@ -93,7 +93,8 @@ class Posterior:
         mean, var = self._latent(t)
         mean = mean + self.model.mean_value
         if observed:
-            e = np.zeros(t.size) if err is None else np.broadcast_to(np.asarray(err, float), t.shape)
+            e = np.zeros(t.size) if err is None else np.asarray(err, float)
+            e = np.broadcast_to(e, t.shape)
             var = var + self.model.noise_variance(e)
         return Prediction(t=t, mean=mean, var=var)
 
