@@ -1,5 +1,7 @@
 """Inference methods behind one interface: Exact, Kalman (and sparse ones)."""
 
+import inspect
+
 from .base import Evaluation, Method, Posterior, Prediction
 from .exact import Exact
 from .kalman import Kalman
@@ -9,18 +11,41 @@ from .kalman import Kalman
 REGISTRY: dict[str, type] = {"exact": Exact, "kalman": Kalman}
 
 
-def resolve(method) -> Method:
+def resolve(method, **options) -> Method:
     """Return a :class:`Method` for a method object or its name.
+
+    Parameters
+    ----------
+    method : Method or str
+        A method object (returned as it is) or a name in ``REGISTRY``.
+    **options
+        Keyword arguments of the named method's constructor, for example
+        ``resolve("exact", max_n=4000)``; not allowed with a method object.
 
     Examples
     --------
     >>> resolve("kalman")
     Kalman()
+    >>> resolve("exact", max_n=4000)
+    Exact(max_n=4000, jitter=0.0)
     """
     if isinstance(method, Method):
+        if options:
+            raise ValueError(
+                f"options {sorted(options)} can only go with a method name, got the object "
+                f"{method!r}; configure the object itself instead"
+            )
         return method
     if isinstance(method, str) and method.lower() in REGISTRY:
-        return REGISTRY[method.lower()]()
+        cls = REGISTRY[method.lower()]
+        try:
+            return cls(**options)
+        except TypeError as exc:
+            accepted = [p for p in inspect.signature(cls).parameters if p != "self"]
+            raise ValueError(
+                f"method {method!r} does not take options {sorted(options)} ({exc}); "
+                f"its options are {accepted}"
+            ) from exc
     raise ValueError(
         f"unknown inference method {method!r}; choose one of {sorted(REGISTRY)} "
         "or pass a method object such as longwave.methods.Kalman()"
