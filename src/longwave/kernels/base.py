@@ -23,6 +23,7 @@ from dataclasses import replace
 import numpy as np
 
 from ..params import Param, as_param
+from .product_ss import product_state_space
 from .statespace import StateSpace, stack_blocks
 
 
@@ -87,6 +88,14 @@ class Kernel:
     def has_state_space(self) -> bool:
         """Whether :meth:`state_space` gives an exact state-space form."""
         return all(leaf.has_state_space for leaf in self.leaves())
+
+    def covariance_error_bound(self) -> float:
+        """Bound on ``max_tau |k_ss(tau) - k(tau)|`` of the state-space form.
+
+        Zero for exact forms; approximate forms (Periodic, SquaredExp) report
+        their own, sums add them, products combine them as in :class:`Product`.
+        """
+        return 0.0
 
     def state_space(self) -> StateSpace:
         raise NotImplementedError(
@@ -266,15 +275,37 @@ class Sum(_Composite):
             return super().state_space()
         return stack_blocks([part.state_space() for part in self.parts])
 
+    def covariance_error_bound(self) -> float:
+        # |sum k_i' - sum k_i| <= sum |k_i' - k_i|
+        return float(sum(part.covariance_error_bound() for part in self.parts))
+
 
 class Product(_Composite):
-    """Product of kernels: ``k(tau) = prod_i k_i(tau)`` (dense form)."""
+    """Product of kernels: ``k(tau) = prod_i k_i(tau)``.
+
+    When every factor has a state-space form, so does the product: the
+    Kronecker product of the factors' states (see ``kernels/product_ss.py``).
+    """
 
     _symbol = " * "
 
     @property
     def has_state_space(self) -> bool:
-        return False
+        return all(part.has_state_space for part in self.parts)
+
+    def state_space(self) -> StateSpace:
+        if not self.has_state_space:
+            return super().state_space()
+        return product_state_space([part.state_space() for part in self.parts])
+
+    def covariance_error_bound(self) -> float:
+        # |a'b' - ab| <= |a| |b' - b| + |b'| |a' - a|, with |k| <= k(0), folded left to right
+        bound, var = 0.0, 1.0
+        for part in self.parts:
+            e, v = part.covariance_error_bound(), part.variance()
+            bound = abs(var) * e + (abs(v) + e) * bound
+            var = var * v
+        return float(bound)
 
     def value(self, tau):
         out = self.parts[0].value(tau)
