@@ -78,15 +78,19 @@ def hard_series(rng, n, scale, amplitude):
 
 
 def central_difference(func, x, step=1e-5):
-    """Central finite-difference gradient of a scalar function (error O(step^2))."""
+    """Central finite-difference derivatives of ``func`` at ``x`` (error O(step^2)).
+
+    ``func`` may return a scalar or an array; the result has shape
+    ``(x.size,) + shape of func(x)``.
+    """
     x = np.asarray(x, dtype=float)
-    out = np.empty(x.size)
+    out = []
     for i in range(x.size):
         up, down = x.copy(), x.copy()
         up[i] += step
         down[i] -= step
-        out[i] = (func(up) - func(down)) / (2 * step)
-    return out
+        out.append((np.asarray(func(up)) - np.asarray(func(down))) / (2 * step))
+    return np.array(out)
 
 
 def seed_for(name: str) -> int:
