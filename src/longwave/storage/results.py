@@ -228,6 +228,12 @@ def _read_store(path) -> tuple[dict, dict, dict, list]:
         raise RuntimeError(f"{path} kept changing while being read; retry when the writer "
                            "is idle")
     cols = {k: np.concatenate([c[0][k] for c in chunks]) for k in COLUMNS}
+    uniq, counts = np.unique(cols["id"], return_counts=True)
+    if uniq.size != cols["id"].size:
+        dup = str(uniq[np.argmax(counts)])
+        raise LayoutError(path, "/results/id", f"ids must be unique, {dup!r} "
+                          f"appears {counts.max()} times; the store was written by something "
+                          "other than ResultStore, repair it or start a new store")
     params = {k: np.concatenate([c[1][k] for c in chunks]) for k in attrs["param_names"]}
     return attrs, cols, params, parts
 

@@ -352,6 +352,12 @@ class SurveyFile:
             self.ids = _h5.read_strings(ids_ds)
         except OSError as exc:
             raise LayoutError(p, "/ids", f"cannot be read ({exc}); regenerate the file") from exc
+        uniq, counts = np.unique(self.ids, return_counts=True)
+        if uniq.size != self.ids.size:
+            dup = str(uniq[np.argmax(counts)])
+            where = np.flatnonzero(self.ids == dup).tolist()
+            raise LayoutError(p, "/ids", f"ids must be unique, {dup!r} appears at positions "
+                              f"{where}; rewrite the file with unique ids")
         self.meta_names = json.loads(f.attrs.get("meta_names", "[]"))
         self._meta = {}
         for k in self.meta_names:
