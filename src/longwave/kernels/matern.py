@@ -25,6 +25,7 @@ import math
 import numpy as np
 from scipy.linalg import solve_continuous_lyapunov
 
+from .._loops.blocks import CODE_MATERN12, CODE_MATERN32, CODE_MATERN52
 from .base import Primitive
 from .statespace import StateSpace
 
@@ -131,6 +132,7 @@ class Matern12(_Matern):
 
     order = 1
     default_label = "matern12"
+    loop_code = CODE_MATERN12  # compiled form in _loops/blocks.py (sparse methods)
 
     @staticmethod
     def _poly(u):
@@ -157,6 +159,7 @@ class Matern32(_Matern):
 
     order = 2
     default_label = "matern32"
+    loop_code = CODE_MATERN32  # compiled form in _loops/blocks.py (sparse methods)
 
     @staticmethod
     def _poly(u):
@@ -176,6 +179,7 @@ class Matern52(_Matern):
 
     order = 3
     default_label = "matern52"
+    loop_code = CODE_MATERN52  # compiled form in _loops/blocks.py (sparse methods)
 
     @staticmethod
     def _poly(u):
