@@ -1,0 +1,202 @@
+"""Compiled cross-covariance blocks ``K[a, i] = k(|z_a - t_i|)`` for sparse methods.
+
+A kernel reaches these loops as a *flat form*: a sum of terms, each term a
+product of primitive factors. Factor ``f`` has an integer ``codes[f]``
+(one of the ``CODE_*`` constants below) and its natural hyperparameter
+values in ``params[f, :]`` (in the kernel class's ``param_names_local``
+order); the factors of term ``j`` are ``term_start[j] : term_start[j + 1]``.
+``slots[f, p]`` is the index of factor ``f``'s parameter ``p`` among the
+kernel's parameters (``-1`` for padding), so gradients land in the right
+place even when expanding a product of sums repeats a factor.
+
+Adding a kernel's compiled form happens in this file only: add a
+``CODE_*`` constant and one branch in :func:`primitive` that writes the
+value, the derivative in the lag and the derivatives with respect to the
+log of each hyperparameter; then set ``loop_code = CODE_...`` on the kernel
+class. Kernels without a code use the numpy fallback of the sparse methods.
+
+Plain-numpy twins of these loops live in ``tests/test_sparse_blocks.py``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+CODE_NONE = 0
+CODE_MATERN12 = 1
+CODE_MATERN32 = 2
+CODE_MATERN52 = 3
+
+MAX_PARAMS = 4  # widest factor supported; raise it here if a kernel needs more
+SQRT3 = math.sqrt(3.0)
+SQRT5 = math.sqrt(5.0)
+
+
+@njit(cache=True, inline="always")
+def primitive(code, tau, par, out, with_grad):
+    """Write ``k(tau)`` into ``out[0]``; with ``with_grad`` also ``dk/dtau`` into
+    ``out[1]`` and ``dk/dlog(par[p])`` into ``out[2 + p]``.
+
+    Matérn forms: Rasmussen & Williams 2006, eq. 4.17, with ``u = lam tau``.
+    """
+    amp2 = par[0] * par[0]
+    if code == CODE_MATERN12:
+        lam = 1.0 / par[1]
+        u = lam * tau
+        e = amp2 * math.exp(-u)
+        out[0] = e
+        if with_grad:
+            out[1] = -lam * e
+            out[2] = 2.0 * e
+            out[3] = u * e
+    elif code == CODE_MATERN32:
+        lam = SQRT3 / par[1]
+        u = lam * tau
+        e = amp2 * math.exp(-u)
+        out[0] = (1.0 + u) * e
+        if with_grad:
+            out[1] = -lam * u * e
+            out[2] = 2.0 * out[0]
+            out[3] = u * u * e
+    elif code == CODE_MATERN52:
+        lam = SQRT5 / par[1]
+        u = lam * tau
+        e = amp2 * math.exp(-u)
+        out[0] = (1.0 + u + u * u / 3.0) * e
+        if with_grad:
+            out[1] = -lam * u * (1.0 + u) * e / 3.0
+            out[2] = 2.0 * out[0]
+            out[3] = u * u * (1.0 + u) * e / 3.0
+    else:
+        out[0] = math.nan
+        if with_grad:
+            out[1] = math.nan
+
+
+@njit(cache=True, inline="always")
+def _value(tau, codes, params, term_start, buf):
+    total = 0.0
+    for j in range(term_start.size - 1):
+        prod = 1.0
+        for f in range(term_start[j], term_start[j + 1]):
+            primitive(codes[f], tau, params[f], buf, False)
+            prod *= buf[0]
+        total += prod
+    return total
+
+
+@njit(cache=True, parallel=True)
+def cross_block(z, t, form, colscale, out):
+    """``out[a, i] = colscale[i] * k(|z[a] - t[i]|)``.
+
+    Parameters
+    ----------
+    z : (m,) inducing times; t : (c,) data times (input)
+    form : tuple (codes, params, term_start, slots), the flat kernel form (input)
+    colscale : (c,) column weights, e.g. ``1 / sigma_i`` (input)
+    out : (m, c) C-ordered buffer (output)
+    """
+    codes, params, term_start, _ = form
+    for a in prange(z.size):
+        buf = np.empty(2 + MAX_PARAMS)
+        za = z[a]
+        for i in range(t.size):
+            out[a, i] = colscale[i] * _value(abs(za - t[i]), codes, params, term_start, buf)
+
+
+@njit(cache=True)
+def square_block(z, form, out):
+    """``out[a, b] = k(|z[a] - z[b]|)`` for the (m, m) inducing covariance (output)."""
+    codes, params, term_start, _ = form
+    buf = np.empty(2 + MAX_PARAMS)
+    for a in range(z.size):
+        for b in range(a + 1):
+            v = _value(abs(z[a] - z[b]), codes, params, term_start, buf)
+            out[a, b] = v
+            out[b, a] = v
+
+
+@njit(cache=True, inline="always")
+def _contract_point(weight, diff, codes, params, term_start, slots, fac, grad, with_z):
+    """Add ``weight * dk/dtheta`` into ``grad[:-1]``; return ``weight * dk/dz``.
+
+    ``fac`` is scratch of shape (n_factors, 2 + MAX_PARAMS). The derivative of
+    a product term with respect to factor f's inputs is f's derivative times
+    the product of the other factors (computed without dividing, since a
+    factor may be zero).
+    """
+    tau = abs(diff)
+    dz = 0.0
+    # |z - t| has a kink at zero; its subgradient 0 is used there (the
+    # derivative in the lag vanishes at 0 for every kernel smoother than Matérn-1/2).
+    with_z = with_z and diff != 0.0
+    for j in range(term_start.size - 1):
+        lo, hi = term_start[j], term_start[j + 1]
+        for f in range(lo, hi):
+            primitive(codes[f], tau, params[f], fac[f], True)
+        for f in range(lo, hi):
+            others = weight
+            for g in range(lo, hi):
+                if g != f:
+                    others *= fac[g, 0]
+            for p in range(MAX_PARAMS):
+                s = slots[f, p]
+                if s >= 0:
+                    grad[s] += others * fac[f, 2 + p]
+            if with_z:
+                dz += others * fac[f, 1]
+    if diff < 0.0:
+        dz = -dz
+    return dz
+
+
+@njit(cache=True, parallel=True)
+def contract_block(z, t, form, adjoint, with_z, partial, gz_out):
+    """Contract an adjoint with kernel derivatives over one (m, c) block.
+
+    Row ``k`` of ``partial`` receives ``sum adjoint[a, i] * dK[a, i] / dlog(theta_s)``
+    over its share of the rows ``a`` (one share per parallel task; the caller
+    sums the rows), and, when ``with_z``, ``gz_out[a] += sum_i adjoint[a, i] dK[a, i]/dz_a``.
+
+    Parameters
+    ----------
+    z : (m,), t : (c,) times (input); form : flat kernel form (input)
+    adjoint : (m, c) ``dF/dK`` for this block (input)
+    partial : (n_tasks, p) zeros (output); gz_out : (m,) accumulated (output)
+    """
+    codes, params, term_start, slots = form
+    n_tasks = partial.shape[0]
+    m = z.size
+    for k in prange(n_tasks):
+        fac = np.empty((codes.size, 2 + MAX_PARAMS))
+        row = partial[k]
+        for a in range(k * m // n_tasks, (k + 1) * m // n_tasks):
+            za = z[a]
+            dz_sum = 0.0
+            for i in range(t.size):
+                dz_sum += _contract_point(adjoint[a, i], za - t[i], codes, params,
+                                          term_start, slots, fac, row, with_z)
+            gz_out[a] += dz_sum
+
+
+@njit(cache=True)
+def contract_square(z, form, adjoint, with_z, grad_out, gz_out):
+    """As :func:`contract_block` for the symmetric (m, m) inducing block.
+
+    ``adjoint`` is ``dF/dKuu`` (symmetric); the z-derivative counts both the
+    row and the column of ``z_a`` (hence the factor 2).
+    """
+    codes, params, term_start, slots = form
+    fac = np.empty((codes.size, 2 + MAX_PARAMS))
+    scratch = np.zeros(grad_out.size + 1)
+    for a in range(z.size):
+        for b in range(z.size):
+            # the diagonal k(0) does not move with z_a; _contract_point gives dz = 0 there
+            dz = _contract_point(adjoint[a, b], z[a] - z[b], codes, params, term_start,
+                                 slots, fac, scratch, with_z)
+            gz_out[a] += 2.0 * dz
+    for s in range(grad_out.size):
+        grad_out[s] += scratch[s]
