@@ -69,8 +69,12 @@ class Param:
         Keep the value during fitting.
     prior : LogNormal or Normal, optional
         Log-prior added to the objective during fitting.
-    positive : bool, default True
-        Positive parameters are optimised as ``log(value)``.
+    positive : bool, optional
+        Positive parameters must be > 0 and are optimised as ``log(value)``.
+        Default ``None``: decided by where the parameter is used (kernel
+        hyperparameters and the excess noise are positive, the mean is not),
+        so ``fixed(-0.5)`` works as a mean; until then it counts as positive
+        for :attr:`coordinate`, and its positivity is checked when it is used.
 
     Examples
     --------
@@ -82,7 +86,7 @@ class Param:
     bounds: tuple = (None, None)
     fixed: bool = False
     prior: object = None
-    positive: bool = True
+    positive: bool | None = None
     name: str = field(default="", compare=False)
 
     def __post_init__(self):
@@ -107,25 +111,24 @@ class Param:
     @property
     def coordinate(self) -> float:
         """The optimiser's coordinate: ``log(value)`` if positive, else ``value``."""
-        return math.log(self.value) if self.positive else self.value
+        return math.log(self.value) if self.positive is not False else self.value
 
     def coordinate_bounds(self) -> tuple:
         """Bounds in the optimiser's coordinate (``None`` where open)."""
-        f = math.log if self.positive else float
+        f = math.log if self.positive is not False else float
         lo, hi = self.bounds
         return (None if lo is None else f(lo), None if hi is None else f(hi))
 
     def with_coordinate(self, coordinate: float) -> Param:
-        value = math.exp(coordinate) if self.positive else float(coordinate)
+        value = math.exp(coordinate) if self.positive is not False else float(coordinate)
         return replace(self, value=value)
 
 
 def as_param(spec, name: str, positive: bool = True) -> Param:
     """Turn a float or a :class:`Param` into a named :class:`Param`."""
     if isinstance(spec, Param):
-        if spec.positive != positive:
-            spec = replace(spec, positive=positive)
-        return replace(spec, name=name)
+        # One replace, so that a failed check names the parameter.
+        return replace(spec, positive=positive, name=name)
     if isinstance(spec, bool) or not isinstance(spec, (int, float, np.floating, np.integer)):
         raise TypeError(
             f"hyperparameter {name!r} must be a number or a longwave.Param, got "
