@@ -61,10 +61,20 @@ class Settings:
     chunk_size : int
         Points per chunk when streaming long series (``LONGWAVE_CHUNK``,
         default 65536).
+    sparse_block_mb : int
+        Size in MB of one (m, chunk) kernel block of the sparse methods
+        (``LONGWAVE_SPARSE_BLOCK_MB``, default 16): the chunk is this divided
+        by ``8 m``, capped at ``chunk_size``. A few such blocks are alive at
+        once, so memory stays O(m * chunk) whatever n is.
     """
 
     exact_max_n: int
     chunk_size: int
+    sparse_block_mb: int = 16
+
+    def sparse_chunk(self, m: int) -> int:
+        """Points per chunk for a sparse method with ``m`` inducing times."""
+        return int(max(256, min(self.chunk_size, self.sparse_block_mb * 2**20 // (8 * m))))
 
 
 def settings() -> Settings:
@@ -72,6 +82,7 @@ def settings() -> Settings:
     return Settings(
         exact_max_n=_env_int("LONGWAVE_EXACT_MAX_N", 10_000),
         chunk_size=_env_int("LONGWAVE_CHUNK", 65_536),
+        sparse_block_mb=_env_int("LONGWAVE_SPARSE_BLOCK_MB", 16),
     )
 
 
