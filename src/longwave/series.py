@@ -73,7 +73,7 @@ class Series:
         has_err = err is not None
         if has_err:
             if np.ndim(err) == 0:
-                err = np.full(t.size, float(err))
+                err = np.full(t.size, err)  # converted and checked just below
             err = _as_1d_float(err, "err")
             if err.size != t.size:
                 raise ValueError(
