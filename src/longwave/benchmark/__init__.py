@@ -5,7 +5,7 @@ recommends the cheapest within a tolerance; ``run_scaling`` times methods
 against n; ``time_call`` is the stopwatch the project's bench scripts share.
 """
 
-from .recommend import Recommendation, Tolerance, recommend
+from .recommend import Recommendation, Tolerance, choose_setting, pareto_front
 from .reference import Holdout, choose_reference, largest_stretch
 from .runner import BenchmarkResult, run_benchmark
 from .scaling import growth_exponent, run_scaling, size_grid
@@ -23,7 +23,8 @@ __all__ = [
     "growth_exponent",
     "largest_stretch",
     "parse_methods",
-    "recommend",
+    "choose_setting",
+    "pareto_front",
     "run_benchmark",
     "run_scaling",
     "size_grid",

@@ -73,8 +73,11 @@ def gaussian_kl(mean_ref, var_ref, mean, var) -> np.ndarray:
 
 
 def mean_marginal_kl(mean_ref, var_ref, mean, var) -> float:
-    """Mean over the query points of :func:`gaussian_kl` (marginals only)."""
-    return float(np.mean(gaussian_kl(mean_ref, var_ref, mean, var)))
+    """Mean over the query points of :func:`gaussian_kl` (marginals only).
+
+    Clipped at 0: for identical posteriors rounding can leave about -1e-17.
+    """
+    return max(float(np.mean(gaussian_kl(mean_ref, var_ref, mean, var))), 0.0)
 
 
 def nlpd(y, mean, var) -> float:

@@ -111,7 +111,7 @@ class Verdict:
 
 @dataclass
 class Recommendation:
-    """Outcome of :func:`recommend`.
+    """Outcome of :func:`choose_setting`.
 
     Attributes
     ----------
@@ -130,8 +130,8 @@ class Recommendation:
     warning: str = ""
 
 
-def recommend(results, tolerance: Tolerance,
-              reference_label: str = "the reference") -> Recommendation:
+def choose_setting(results, tolerance: Tolerance,
+                   reference_label: str = "the reference") -> Recommendation:
     """Choose among benchmarked settings.
 
     Parameters
@@ -175,3 +175,26 @@ def recommend(results, tolerance: Tolerance,
             "or loosen the tolerance"
         )
     return Recommendation(choice=choice, tolerance=tolerance, table=rows, warning=warning)
+
+
+def pareto_front(costs, errors) -> list[int]:
+    """Indices of the settings no other setting beats on both cost and error.
+
+    A point is dominated when another is at most as costly and at most as
+    wrong, and strictly better in one (common practice). NaN points are
+    never on the front. Returned in order of increasing cost.
+
+    Examples
+    --------
+    >>> pareto_front([1.0, 2.0, 3.0, 2.5], [0.5, 0.1, 0.0, 0.2])
+    [0, 1, 2]
+    """
+    pts = [(c, e, i) for i, (c, e) in enumerate(zip(costs, errors))
+           if math.isfinite(c) and math.isfinite(e)]
+    pts.sort()
+    front, best = [], math.inf
+    for _cost, e, i in pts:
+        if e < best:
+            front.append(i)
+            best = e
+    return front

@@ -25,7 +25,7 @@ import numpy as np
 from ..inference import fit as fit_model
 from ..series import Series
 from . import metrics
-from .recommend import Recommendation, Tolerance, recommend
+from .recommend import Recommendation, Tolerance, choose_setting
 from .reference import DEFAULT_REFERENCE_MAX_N, Holdout, choose_reference
 from .results import (
     HeldoutScore,
@@ -297,5 +297,5 @@ def run_benchmark(series: Series, model, candidates, *, tolerance: Tolerance | N
         "tolerance": asdict(tolerance), "seed": seed, "reference_max_n": reference_max_n,
         "holdout": asdict(holdout), "fit": fit, "restarts": restarts,
     }
-    return BenchmarkResult(reference, results, recommend(results, tolerance, plan.label),
+    return BenchmarkResult(reference, results, choose_setting(results, tolerance, plan.label),
                            zoom, scaling, config)
