@@ -13,6 +13,8 @@ import contextlib
 import json
 import os
 import tempfile
+from importlib.metadata import PackageNotFoundError
+from importlib.metadata import version as _dist_version
 from pathlib import Path
 
 import h5py
@@ -207,6 +209,14 @@ def json_attr(value, label: str) -> str:
             f"{label} must be JSON-serialisable (dicts, lists, str, numbers, bool, None); "
             f"{exc}; convert arrays with .tolist() and objects with their describe()"
         ) from exc
+
+
+def package_version() -> str:
+    """Installed longwave version, for the ``longwave_version`` attribute of every file."""
+    try:
+        return _dist_version("longwave")
+    except PackageNotFoundError:  # running from a source tree that is not installed
+        return "unknown"
 
 
 def fsync_dir(directory) -> None:

@@ -30,7 +30,6 @@ import numpy as np
 from . import _h5, _journal
 from ._h5 import LayoutError
 from .records import STATUSES, ObjectResult
-from .survey import _package_version
 
 FORMAT = "results"
 FORMAT_VERSION = 1
@@ -356,7 +355,7 @@ class ResultStore:
             "param_names": json.dumps(param_names),
             "status_codes": json.dumps({s: i for i, s in enumerate(STATUSES)}),
             "config": config_json, "model": model_json,
-            "longwave_version": _package_version(), "journal_merged_through": 0,
+            "longwave_version": _h5.package_version(), "journal_merged_through": 0,
         }
         with _h5.atomic_path(self.path, overwrite=False, durable=self.durable) as tmp:
             with _h5.open_h5(tmp, "w") as f:

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from importlib.metadata import version as _dist_version
 
 import numpy as np
 
@@ -65,13 +64,6 @@ def _meta_dtype(value, name):
         f"meta[{name!r}] must be a bool, int, float or str per object, got "
         f"{type(value).__name__}; store arrays as separate series instead"
     )
-
-
-def _package_version() -> str:
-    try:
-        return _dist_version("longwave")
-    except Exception:  # not installed as a distribution (running from a source tree)
-        return "unknown"
 
 
 class SurveyWriter:
@@ -243,7 +235,7 @@ class SurveyWriter:
                 attrs["n_points"] = int(self._f["offsets"][-1])
                 attrs["has_err"] = self.has_err
                 attrs["meta_names"] = json.dumps(self._meta_names or [])
-                attrs["longwave_version"] = _package_version()
+                attrs["longwave_version"] = _h5.package_version()
         finally:
             self._f.close()
             self._f = None
@@ -419,6 +411,17 @@ class SurveyFile:
                 meta={k: v[j - i0] for k, v in meta.items()},
             ))
         return out
+
+    def series_dataset(self, id):
+        """Chunked view of one object's rows (a ``SeriesDataset``), for very long objects.
+
+        The view stays valid while this file is open.
+        """
+        from .series_file import SeriesDataset
+
+        i = self.index_of(id)
+        return SeriesDataset(self._data["time"], self._data["value"], self._data.get("error"),
+                             start=self.offsets[i], stop=self.offsets[i + 1], path=self.path)
 
     def iter_batches(self, batch_size: int = 64, skip=None, *, start: int = 0, stop=None):
         """Yield lists of up to ``batch_size`` objects, in file order, reading lazily.
