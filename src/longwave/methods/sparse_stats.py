@@ -1,0 +1,229 @@
+"""One-pass accumulation of the m-by-m statistics of sparse methods.
+
+A *pass* reads the data chunk by chunk and adds each chunk's contribution
+into an accumulator of fixed size (O(m^2), independent of n). Accumulators
+of disjoint ranges add up, so the same chunk functions serve the local loop
+(:func:`run_local`) and the distributed map-reduce (``sparse_dask``).
+
+Notation (Titsias 2009; Snelson & Ghahramani 2006): inducing times ``z``
+(m,), ``Kuu = k(z, z) + jitter`` with Cholesky factor ``L`` and
+``Linv = L^-1``, ``K = k(z, t)`` (m, c) for one chunk, residual
+``r = y - mean``, noise variance ``s2_i = err_i^2 + excess^2`` and weight
+``w_i = 1 / s2_i``, prior variance ``kd = k(0)``.
+
+* VFE value pass: ``Phi = sum_i w_i k_i k_i^T``, ``b = sum_i w_i r_i k_i``, and
+  the sums of ``w r^2``, ``log s2``, ``w`` (one BLAS syrk per chunk; whitened
+  once at the end as ``S = Linv Phi Linv^T``).
+* FITC value pass: whitened columns ``a_i = Linv k_i``, ``q_i = |a_i|^2``,
+  ``D_i = s2_i + kd - q_i``; ``S_F = sum a_i a_i^T / D_i``, ``c_F = sum a_i r_i / D_i``,
+  the sums of ``r^2 / D`` and ``log D``; and the VFE statistics (whitened) for
+  the certified bounds.
+* Gradient passes contract the adjoint ``dF/dK`` of each chunk with the
+  kernel derivatives (compiled, no (p, m, c) array is formed) and add up the
+  per-point scalar sums that the noise and mean gradients need.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields
+
+import numpy as np
+
+
+@dataclass
+class Accumulator:
+    """Sums over data points; every field adds (arrays elementwise).
+
+    Unused fields stay zero; which ones a pass fills is listed in its function.
+    """
+
+    n: int = 0
+    mat: np.ndarray | None = None      # Phi (VFE) or S_F (FITC), (m, m)
+    vec: np.ndarray | None = None      # b (VFE) or c_F (FITC), (m,)
+    sum_rr: float = 0.0                # sum w r^2 (VFE) or r^2 / D (FITC)
+    sum_log: float = 0.0               # sum log s2 (VFE) or log D (FITC)
+    sum_w: float = 0.0                 # sum w
+    vfe_mat: np.ndarray | None = None  # FITC pass only: whitened Phi, (m, m)
+    vfe_vec: np.ndarray | None = None  # FITC pass only: whitened b, (m,)
+    vfe_rr: float = 0.0
+    vfe_log: float = 0.0
+    grad: np.ndarray | None = None     # gradient passes: kernel log-parameters (p,)
+    grad_z: np.ndarray | None = None   # gradient passes: inducing times (m,)
+    sum_dnoise: float = 0.0            # gradient passes: sum dF/d s2_i
+    sum_dresid: float = 0.0            # gradient passes: sum dF/d r_i
+    sum_dkd: float = 0.0               # FITC gradient pass: sum dF/dD_i
+
+    def add(self, other: Accumulator) -> Accumulator:
+        """Add ``other`` into this accumulator (in place) and return it."""
+        for f in fields(self):
+            mine, theirs = getattr(self, f.name), getattr(other, f.name)
+            if theirs is None:
+                continue
+            setattr(self, f.name, theirs.copy() if mine is None else mine + theirs)
+        return self
+
+
+@dataclass(frozen=True)
+class ChunkContext:
+    """What every chunk needs: O(m^2) arrays and scalars (pickled to workers).
+
+    Attributes
+    ----------
+    blocks : CompiledBlocks or NumpyBlocks
+        Block evaluator of the kernel (``sparse_form``).
+    z : ndarray of shape (m,)
+    mean, excess_var, kd : float
+        Constant mean, excess noise variance, prior variance ``k(0)``.
+    linv : ndarray of shape (m, m)
+        Inverse Cholesky factor of ``Kuu`` (FITC passes; VFE gradient pass uses it too).
+    adj_mat : ndarray of shape (m, m) or None
+        Gradient passes: ``G_Phi`` (VFE) or ``B_F^-1`` (FITC).
+    adj_vec : ndarray of shape (m,) or None
+        Gradient passes: ``g = Sigma^-1 b`` (VFE) or ``B_F^-1 c_F`` (FITC).
+    n_grad : int
+        Number of kernel parameters (length of the kernel gradient).
+    with_z : bool
+        Also accumulate the gradient over inducing times.
+    """
+
+    blocks: object
+    z: np.ndarray
+    mean: float
+    excess_var: float
+    kd: float
+    linv: np.ndarray | None = None
+    adj_mat: np.ndarray | None = None
+    adj_vec: np.ndarray | None = None
+    n_grad: int = 0
+    with_z: bool = False
+
+
+def _noise(ctx, err):
+    return err * err + ctx.excess_var
+
+
+def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
+    """Fill ``n, mat (Phi), vec (b), sum_rr, sum_log, sum_w``."""
+    s2 = _noise(ctx, err)
+    w = 1.0 / s2
+    sw = np.sqrt(w)
+    r = y - ctx.mean
+    ks = ctx.blocks.block(ctx.z, t, sw)  # K diag(sqrt(w)): Phi is one syrk
+    acc.mat += ks @ ks.T
+    acc.vec += ks @ (sw * r)
+    acc.n += t.size
+    acc.sum_rr += float(w @ (r * r))
+    acc.sum_log += float(np.log(s2).sum())
+    acc.sum_w += float(w.sum())
+
+
+def vfe_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
+    """Fill ``grad, grad_z, sum_dnoise, sum_dresid`` from ``G_Phi`` and ``g``.
+
+    With ``dF/dPhi = G_Phi`` and ``dF/db = g`` (``sparse_objectives.vfe``), the
+    chain rule through ``Phi = sum w k k^T``, ``b = sum w r k`` gives per point
+    ``dF/dk_i = w_i (2 G_Phi k_i + r_i g)`` and
+    ``dF/dw_i = k_i^T G_Phi k_i + r_i g^T k_i - r_i^2 / 2 + 1 / (2 w_i) - kd / 2``.
+    """
+    s2 = _noise(ctx, err)
+    w = 1.0 / s2
+    r = y - ctx.mean
+    k = ctx.blocks.block(ctx.z, t, np.ones(t.size))
+    v = ctx.adj_mat @ k
+    kgk = np.einsum("ac,ac->c", k, v)
+    gk = ctx.adj_vec @ k
+    v *= 2.0 * w
+    v += np.outer(ctx.adj_vec, w * r)  # v is now the adjoint dF/dK of the chunk
+    ctx.blocks.contract(ctx.z, t, v, ctx.with_z, acc.grad, acc.grad_z)
+    dw = kgk + r * gk - 0.5 * r * r + 0.5 * s2 - 0.5 * ctx.kd
+    acc.sum_dnoise += float(-(w * w) @ dw)
+    acc.sum_dresid += float(w @ (gk - r))
+    acc.n += t.size
+
+
+def fitc_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
+    """Fill the FITC sums (``mat, vec, sum_rr, sum_log``) and the whitened VFE ones."""
+    s2 = _noise(ctx, err)
+    r = y - ctx.mean
+    a = ctx.linv @ ctx.blocks.block(ctx.z, t, np.ones(t.size))
+    d = s2 + np.maximum(ctx.kd - np.einsum("ac,ac->c", a, a), 0.0)
+    sd = 1.0 / np.sqrt(d)
+    ad = a * sd
+    acc.mat += ad @ ad.T
+    acc.vec += ad @ (sd * r)
+    acc.sum_rr += float((r * r) @ (1.0 / d))
+    acc.sum_log += float(np.log(d).sum())
+    w = 1.0 / s2
+    aw = a * np.sqrt(w)
+    acc.vfe_mat += aw @ aw.T
+    acc.vfe_vec += a @ (w * r)
+    acc.vfe_rr += float(w @ (r * r))
+    acc.vfe_log += float(np.log(s2).sum())
+    acc.sum_w += float(w.sum())
+    acc.n += t.size
+
+
+def fitc_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
+    """Fill ``grad, grad_z, mat (sum delta a a^T), sum_dkd, sum_dnoise, sum_dresid``.
+
+    With ``alpha = (Q + D)^-1 r`` and ``delta_i = dF/dD_i`` (derivation in
+    ``sparse_objectives.fitc``): ``alpha_i = (r_i - a_i^T g) / D_i``,
+    ``delta_i = (alpha_i^2 - 1/D_i + a_i^T B^-1 a_i / D_i^2) / 2`` and
+    ``dF/dk_i = Linv^T (g alpha_i - B^-1 a_i / D_i - 2 delta_i a_i)``.
+    """
+    s2 = _noise(ctx, err)
+    r = y - ctx.mean
+    k = ctx.blocks.block(ctx.z, t, np.ones(t.size))
+    a = ctx.linv @ k
+    d = s2 + np.maximum(ctx.kd - np.einsum("ac,ac->c", a, a), 0.0)
+    p = ctx.adj_mat @ a
+    apa = np.einsum("ac,ac->c", a, p)
+    alpha = (r - ctx.adj_vec @ a) / d
+    delta = 0.5 * (alpha * alpha - 1.0 / d + apa / (d * d))
+    x = np.outer(ctx.adj_vec, alpha)
+    x -= p / d
+    x -= a * (2.0 * delta)
+    adj = ctx.linv.T @ x
+    ctx.blocks.contract(ctx.z, t, adj, ctx.with_z, acc.grad, acc.grad_z)
+    acc.mat += (a * delta) @ a.T
+    acc.sum_dkd += float(delta.sum())
+    acc.sum_dnoise += float(delta.sum())
+    acc.sum_dresid += float(-alpha.sum())
+    acc.n += t.size
+
+
+def new_accumulator(kind: str, m: int, p: int = 0) -> Accumulator:
+    """Zeroed accumulator for a pass of ``kind`` in {'value', 'fitc_value', 'grad', 'fitc_grad'}."""
+    acc = Accumulator()
+    if kind in ("value", "fitc_value", "fitc_grad"):
+        acc.mat = np.zeros((m, m))
+    if kind in ("value", "fitc_value"):
+        acc.vec = np.zeros(m)
+    if kind == "fitc_value":
+        acc.vfe_mat, acc.vfe_vec = np.zeros((m, m)), np.zeros(m)
+    if kind in ("grad", "fitc_grad"):
+        acc.grad, acc.grad_z = np.zeros(p), np.zeros(m)
+    return acc
+
+
+CHUNK_FUNCTIONS = {
+    "value": vfe_value_chunk,
+    "grad": vfe_grad_chunk,
+    "fitc_value": fitc_value_chunk,
+    "fitc_grad": fitc_grad_chunk,
+}
+
+
+def accumulate_range(kind, ctx, source, lo, hi, chunk) -> Accumulator:
+    """Run pass ``kind`` over points ``lo:hi`` of ``source`` in chunks of ``chunk``."""
+    acc = new_accumulator(kind, ctx.z.size, ctx.n_grad)
+    step = CHUNK_FUNCTIONS[kind]
+    for start in range(lo, hi, chunk):
+        t, y, err = source.read(start, min(start + chunk, hi))
+        step(ctx, t, y, err, acc)
+    return acc
+
+
+def run_local(kind, ctx, source, chunk) -> Accumulator:
+    """The whole pass in this process."""
+    return accumulate_range(kind, ctx, source, 0, source.n, chunk)
