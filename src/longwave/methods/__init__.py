@@ -5,10 +5,12 @@ import inspect
 from .base import Evaluation, Method, Posterior, Prediction
 from .exact import Exact
 from .kalman import Kalman
+from .sparse import FITC, VFE
+from .sparse_data import ChunkedSeries
 
 # The one place where a method's name maps to its class (rule: strings map to
 # objects in one place only). Sparse methods register themselves here too.
-REGISTRY: dict[str, type] = {"exact": Exact, "kalman": Kalman}
+REGISTRY: dict[str, type] = {"exact": Exact, "kalman": Kalman, "vfe": VFE, "fitc": FITC}
 
 
 def resolve(method, **options) -> Method:
@@ -52,4 +54,7 @@ def resolve(method, **options) -> Method:
     )
 
 
-__all__ = ["Evaluation", "Exact", "Kalman", "Method", "Posterior", "Prediction", "resolve"]
+__all__ = [
+    "ChunkedSeries", "Evaluation", "Exact", "FITC", "Kalman", "Method", "Posterior",
+    "Prediction", "VFE", "resolve",
+]
