@@ -120,7 +120,16 @@ class Param:
         return (None if lo is None else f(lo), None if hi is None else f(hi))
 
     def with_coordinate(self, coordinate: float) -> Param:
-        value = math.exp(coordinate) if self.positive is not False else float(coordinate)
+        if self.positive is False:
+            return replace(self, value=float(coordinate))
+        value = math.exp(coordinate)
+        # exp(log(b)) can land an ulp outside a bound b; an optimiser sitting on a
+        # bound must not then fail the bounds check.
+        lo, hi = self.bounds
+        if lo is not None and value < lo <= value * (1 + 1e-12):
+            value = float(lo)
+        if hi is not None and hi < value <= hi * (1 + 1e-12):
+            value = float(hi)
         return replace(self, value=value)
 
 
