@@ -16,7 +16,6 @@ from longwave.simulate import simulate_series
 from longwave.storage import ObjectData
 from longwave.survey import (
     DataScales,
-    Grid,
     PipelineConfig,
     build_model,
     choose_method,
@@ -24,6 +23,7 @@ from longwave.survey import (
     fit_object,
     parse_spec,
 )
+from longwave.survey import PredictionGrid as Grid
 
 SPEC = parse_spec("matern32")
 

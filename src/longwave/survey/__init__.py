@@ -10,10 +10,10 @@ from .initial import DataScales, build_model, param_names
 from .modelfile import load_model_file
 from .pipeline import (
     AUTO,
-    Grid,
     GridPrediction,
     ObjectFit,
     PipelineConfig,
+    PredictionGrid,
     choose_method,
     fit_batch,
     fit_object,
@@ -35,7 +35,7 @@ def __getattr__(name):
 __all__ = [
     "AUTO",
     "DataScales",
-    "Grid",
+    "PredictionGrid",
     "GridPrediction",
     "ModelSpec",
     "ObjectFit",

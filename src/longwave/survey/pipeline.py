@@ -39,7 +39,7 @@ SPARSE_PREFERENCE = ("vfe", "fitc")
 
 
 @dataclass(frozen=True)
-class Grid:
+class PredictionGrid:
     """Prediction times for one object: a fixed step or a fixed count over its span.
 
     Parameters
@@ -64,7 +64,7 @@ class Grid:
         if (self.step is None) == (self.count is None):
             raise ValueError(
                 f"give exactly one of step and count, got step={self.step}, count={self.count};"
-                " for example Grid(step=0.5) or Grid(count=1000)")
+                " for example PredictionGrid(step=0.5) or PredictionGrid(count=1000)")
         if self.step is not None and not (self.step > 0 and math.isfinite(self.step)):
             raise ValueError(f"grid step must be positive and finite, got {self.step}")
         if self.count is not None and (int(self.count) != self.count or self.count < 2):
@@ -76,7 +76,7 @@ class Grid:
         return int(math.floor((t1 - t0) / self.step + 1e-9)) + 1
 
     def times(self, t0: float, t1: float) -> np.ndarray:
-        """Grid times over ``[t0, t1]``."""
+        """PredictionGrid times over ``[t0, t1]``."""
         if self.count is not None:
             return np.linspace(t0, t1, int(self.count))
         return t0 + self.step * np.arange(self.size(t0, t1))
@@ -120,7 +120,7 @@ def choose_method(model, n: int, method: str = AUTO, inducing: int | None = None
     -------
     Method
     """
-    options = {} if inducing is None else {"n_inducing": int(inducing)}
+    options = {} if inducing is None else {"inducing": int(inducing)}
     name = method.lower()
     if name != AUTO:
         sparse = name in SPARSE_PREFERENCE
@@ -159,8 +159,8 @@ def _reduced_chi2(post, series, n_free: int) -> float:
 
 
 def fit_object(t, y, err=None, *, model_spec, method: str = AUTO, clip: float | None = None,
-               max_clip_iter: int = 5, grid: Grid | None = None, inducing: int | None = None,
-               id: str = "") -> ObjectFit:
+               max_clip_iter: int = 5, grid: PredictionGrid | None = None,
+               inducing: int | None = None, id: str = "") -> ObjectFit:
     """Fit one object and summarise it; bad data are recorded, never raised.
 
     Parameters
@@ -180,7 +180,7 @@ def fit_object(t, y, err=None, *, model_spec, method: str = AUTO, clip: float | 
         out of the next fit, until the set stops changing or
         ``max_clip_iter`` refits (common practice). Default: no clipping.
     max_clip_iter : int, default 5
-    grid : Grid, optional
+    grid : PredictionGrid, optional
         Also return the posterior on this grid.
     inducing : int, optional
         Inducing points for sparse methods.
@@ -211,6 +211,25 @@ def fit_object(t, y, err=None, *, model_spec, method: str = AUTO, clip: float | 
     >>> fit_object([0.0, 1.0], [1.0, 2.0], model_spec="matern32").result.status
     'bad_input'
     """
+    return fit_object_with_posterior(
+        t, y, err, model_spec=model_spec, method=method, clip=clip,
+        max_clip_iter=max_clip_iter, grid=grid, inducing=inducing, id=id)[0]
+
+
+def fit_object_with_posterior(t, y, err=None, *, model_spec, method=AUTO, clip=None,
+                              max_clip_iter=5, grid=None, inducing=None, id="",
+                              method_wrapper=None):
+    """:func:`fit_object`, also returning the final posterior and the points fitted.
+
+    For callers that go on predicting (``longwave fit`` streams a long grid
+    to disk). ``method_wrapper``, if given, wraps the chosen method object
+    (for example to count evaluations for a progress bar).
+
+    Returns
+    -------
+    ObjectFit, Posterior or None, Series or None
+        ``None`` for objects that were not fitted.
+    """
     start = time.perf_counter()
     spec = parse_spec(model_spec) if isinstance(model_spec, str) else model_spec
     if not isinstance(spec, ModelSpec):
@@ -224,23 +243,27 @@ def fit_object(t, y, err=None, *, model_spec, method: str = AUTO, clip: float | 
     checked = check_object(t, y, err)
     if checked.series is None:
         return ObjectFit(ObjectResult(id=id, status="bad_input", message=checked.reason,
-                                      runtime=time.perf_counter() - start))
+                                      runtime=time.perf_counter() - start)), None, None
     try:
         return _fit_clean(checked, spec, method, clip, max_clip_iter, grid, inducing, id,
-                          start)
+                          start, method_wrapper)
     except Exception as exc:  # one object's failure must not stop a survey
         where = traceback.extract_tb(exc.__traceback__)[-1]
         return ObjectFit(ObjectResult(
             id=id, status="failed", n=checked.series.n, runtime=time.perf_counter() - start,
-            message=f"{type(exc).__name__}: {exc} (at {where.name}, line {where.lineno})"))
+            message=f"{type(exc).__name__}: {exc} (at {where.name}, line {where.lineno})")
+        ), None, None
 
 
-def _fit_clean(checked, spec, method, clip, max_clip_iter, grid, inducing, id, start):
+def _fit_clean(checked, spec, method, clip, max_clip_iter, grid, inducing, id, start,
+               method_wrapper):
     full = checked.series
     model = build_model(spec, DataScales.from_arrays(full.t, full.y,
                                                      full.err if full.has_err else None))
     n_free = int(model.free_mask.sum())
     chosen = choose_method(model, full.n, method, inducing)
+    if method_wrapper is not None:
+        chosen = method_wrapper(chosen)
     keep = np.ones(full.n, dtype=bool)
     series, notes = full, [checked.notes] if checked.notes else []
     result = fit(model, series, chosen)
@@ -280,7 +303,7 @@ def _fit_clean(checked, spec, method, clip, max_clip_iter, grid, inducing, id, s
         bound_gap=float(gap), n_evaluations=evaluations, converged=result.converged,
         message=message, runtime=time.perf_counter() - start,
         reduced_chi2=_reduced_chi2(post, series, n_free), n_clipped=int(full.n - keep.sum()),
-    ), prediction)
+    ), prediction), post, series
 
 
 @dataclass(frozen=True)
@@ -294,7 +317,7 @@ class PipelineConfig:
     method: str = AUTO
     clip: float | None = None
     max_clip_iter: int = 5
-    grid: Grid | None = None
+    grid: PredictionGrid | None = None
     inducing: int | None = None
 
     def describe(self) -> dict:

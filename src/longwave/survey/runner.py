@@ -1,0 +1,233 @@
+"""Running a survey: every object through the pipeline, serially or on dask.distributed.
+
+The one place (with the sparse methods' distributed path) that imports dask.
+
+Execution
+---------
+* Objects travel in batches (default 64 per task), so scheduling costs are
+  paid per batch, not per object.
+* At most ``in_flight`` tasks (default: two per worker thread, so a worker
+  always has its next batch queued) are submitted at a time; a new batch is
+  read and submitted only when one completes. Client memory is therefore
+  bounded by those batches, however many objects the survey holds.
+* Results come back through ``as_completed`` and only the client writes the
+  result file, so there is one writer and no locking between workers.
+* A lost worker is survived: the scheduler reruns its tasks elsewhere
+  (``retries`` covers exceptions inside a task). A batch that still fails is
+  split and its objects resubmitted one by one, so only the object that
+  kills workers is recorded as ``failed``.
+* Every id is written once: ids already stored (``resume``) are not read
+  again, and a result for an id already written is dropped and counted.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import sys
+import time
+from contextlib import ExitStack
+from itertools import islice
+
+from distributed import Client, LocalCluster, as_completed
+from tqdm import tqdm
+
+from .. import methods
+from ..storage import ObjectResult, ResultStore
+from .initial import param_names
+from .inputs import SurveyInput
+from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch
+from .spec import ModelSpec, parse_spec
+from .summary import SurveySummary, Tally
+
+# Seconds allowed to reach a given scheduler and to see a worker there.
+CONNECT_TIMEOUT = 30.0
+
+
+class _Writer:
+    """The single consumer: writes results and predictions, tallies, moves the bar."""
+
+    def __init__(self, store, seen: set, bar, tally: Tally):
+        self.store, self.seen, self.bar, self.tally = store, seen, bar, tally
+
+    def consume(self, fits: list[ObjectFit]) -> None:
+        for fit in fits:
+            result = fit.result
+            if result.id in self.seen:
+                self.tally.duplicates += 1
+                continue
+            self.seen.add(result.id)
+            if fit.prediction is not None:
+                p = fit.prediction
+                self.store.append_prediction(result.id, p.t, p.mean, p.std)
+            self.store.append(result)
+            self.tally.add(result)
+        self.bar.update(len(fits))
+
+
+def _failed(batch, exc) -> list[ObjectFit]:
+    message = f"task failed on the cluster: {type(exc).__name__}: {exc}"
+    return [ObjectFit(ObjectResult(id=str(obj.id), status="failed", message=message))
+            for obj in batch]
+
+
+def _run_serial(batches, config, writer) -> None:
+    for batch in batches:
+        writer.consume(fit_batch(batch, config))
+
+
+def _run_distributed(client, batches, config, writer, in_flight: int, retries: int) -> None:
+    pending = {}  # future -> its batch, kept for resubmission if the task fails
+    queue = as_completed()
+
+    def submit(batch):
+        future = client.submit(fit_batch, batch, config, pure=False, retries=retries)
+        pending[future] = batch
+        queue.add(future)
+
+    for batch in islice(batches, in_flight):
+        submit(batch)
+    try:
+        for future in queue:
+            batch = pending.pop(future)
+            try:
+                fits = future.result()
+            except Exception as exc:  # worker lost too often, or a task error
+                if len(batch) > 1:
+                    for obj in batch:  # isolate the culprit
+                        submit([obj])
+                    continue
+                fits = _failed(batch, exc)
+            finally:
+                future.release()
+            writer.consume(fits)
+            following = next(batches, None)
+            if following is not None:
+                submit(following)
+    except BaseException:
+        client.cancel(list(pending))
+        raise
+
+
+def _connect(stack, workers, scheduler, quiet):
+    """A client: to the given scheduler, or to an embedded local cluster."""
+    level = logging.ERROR if quiet else logging.WARNING
+    if scheduler:
+        try:
+            client = stack.enter_context(Client(scheduler, timeout=CONNECT_TIMEOUT))
+        except OSError as exc:
+            raise ValueError(
+                f"cannot reach a dask scheduler at {scheduler!r} ({exc}); start one with "
+                "`dask scheduler --host 127.0.0.1` and pass the address it prints, for "
+                "example --scheduler tcp://127.0.0.1:8786, or leave --scheduler out to use "
+                "an embedded cluster") from exc
+        try:
+            client.wait_for_workers(1, timeout=CONNECT_TIMEOUT)
+        except TimeoutError as exc:
+            raise ValueError(
+                f"the scheduler at {scheduler} has no workers after {CONNECT_TIMEOUT:.0f} s; "
+                f"start one with `dask worker {scheduler} --nthreads 1`") from exc
+        info = client.scheduler_info()["workers"]
+        return client, len(info), sum(w["nthreads"] for w in info.values()), scheduler
+    cluster = stack.enter_context(LocalCluster(
+        n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+        dashboard_address=None, silence_logs=level,
+        # BLAS pools are held at one thread by the nanny's defaults; numba's too.
+        env={"NUMBA_NUM_THREADS": "1"},
+    ))
+    client = stack.enter_context(Client(cluster))
+    return client, workers, workers, "embedded"
+
+
+def _check_settings(method, clip, batch_size, workers, in_flight, retries):
+    if method.lower() != AUTO and method.lower() not in methods.REGISTRY:
+        methods.resolve(method)  # raises, listing the valid names
+    if clip is not None and not clip > 0:
+        raise ValueError(f"clip must be a positive number of sigmas, got {clip}; e.g. clip=5")
+    for name, value, low in (("batch_size", batch_size, 1), ("workers", workers, 0),
+                             ("in_flight", in_flight, 1), ("retries", retries, 0)):
+        if value is not None and (int(value) != value or value < low):
+            raise ValueError(f"{name} must be a whole number >= {low}, got {value!r}")
+
+
+def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
+               max_clip_iter: int = 5, grid=None, inducing=None, workers=None,
+               scheduler=None, resume: bool = False, overwrite: bool = False,
+               batch_size: int = 64, in_flight=None, retries: int = 2, columns=None,
+               progress: bool = True, quiet: bool = False,
+               flush_seconds: float = 10.0) -> SurveySummary:
+    """Fit every object of a survey and write one result row per object.
+
+    Parameters
+    ----------
+    input : str or Path
+        Survey HDF5 file or CSV / Parquet / FITS long table (see :class:`SurveyInput`).
+    out : str or Path
+        Result store (:class:`longwave.storage.ResultStore`) to create, or to
+        continue with ``resume=True``.
+    model : str or ModelSpec, default "matern32"
+        Model specification (see :mod:`longwave.survey.spec`).
+    method, clip, max_clip_iter, grid, inducing
+        As for :func:`longwave.survey.fit_object`.
+    workers : int, optional
+        Worker processes of the embedded cluster (one thread each); default
+        one per core. ``0`` runs serially in this process.
+    scheduler : str, optional
+        Address of an existing dask scheduler (``tcp://host:port``); then
+        ``workers`` is ignored and that cluster's workers are used.
+    resume : bool, default False
+        Continue ``out``: ids already stored are skipped. The settings must
+        match those stored (the store checks).
+    overwrite : bool, default False
+        Replace an existing ``out``.
+    batch_size : int, default 64
+        Objects per task.
+    in_flight : int, optional
+        Tasks submitted at a time; default two per worker thread.
+    retries : int, default 2
+        Reruns of a task that raised on a worker.
+    columns : dict, optional
+        Column names of a long-table input (see :class:`SurveyInput`).
+    progress : bool, default True
+        Progress bar (objects per second, ETA) on stderr.
+    quiet : bool, default False
+        No progress bar, and only errors from dask's logs.
+    flush_seconds : float, default 10.0
+        Buffered results are written at least this often, which bounds the
+        work a killed run loses.
+
+    Returns
+    -------
+    SurveySummary
+    """
+    start = time.perf_counter()
+    spec = parse_spec(model) if isinstance(model, str) else model
+    if not isinstance(spec, ModelSpec):
+        raise TypeError(f"model must be a specification string or ModelSpec, got "
+                        f"{type(model).__name__}; for example model='matern32 + matern12'")
+    _check_settings(method, clip, batch_size, workers, in_flight, retries)
+    if workers is None and not scheduler:
+        workers = os.cpu_count() or 1
+    config = PipelineConfig(model=spec, method=method, clip=clip, max_clip_iter=max_clip_iter,
+                            grid=grid, inducing=inducing)
+    with ExitStack() as stack:
+        source = stack.enter_context(SurveyInput(input, columns=columns))
+        store = stack.enter_context(ResultStore(
+            out, param_names=param_names(spec), config=config.describe(), resume=resume,
+            overwrite=overwrite, model={"spec": spec.text}, flush_seconds=flush_seconds))
+        done = store.done_ids() if resume else set()
+        bar = stack.enter_context(tqdm(
+            total=source.remaining(done), unit="obj", file=sys.stderr, dynamic_ncols=True,
+            disable=quiet or not progress, mininterval=0.5, desc="survey"))
+        tally = Tally()
+        writer = _Writer(store, set(done), bar, tally)
+        batches = source.batches(int(batch_size), skip=done)
+        if not scheduler and workers == 0:
+            _run_serial(batches, config, writer)
+            used, address = 0, "serial"
+        else:
+            client, used, threads, address = _connect(stack, workers, scheduler, quiet)
+            _run_distributed(client, batches, config, writer,
+                             int(in_flight or 2 * max(threads, 1)), int(retries))
+    return tally.summary(out=str(out), skipped=len(done), workers=used, scheduler=address,
+                         wall_seconds=time.perf_counter() - start)
