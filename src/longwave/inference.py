@@ -31,7 +31,7 @@ def _check_inputs(model, series, method):
             f"series must be a longwave.Series, got {type(series).__name__}; build one "
             "with Series(t, y, err)"
         )
-    method = resolve(method)
+    method = resolve(method if method is not None else default_method(model, series))
     method.check(model, series)
     return method
 
@@ -62,14 +62,14 @@ def log_marginal_likelihood(model, series, method=None, gradient: bool = False):
         ``model.free_names``: ``log(value)`` for positive parameters and the
         mean itself.
     """
-    method = _check_inputs(model, series, method or default_method(model, series))
+    method = _check_inputs(model, series, method)
     ev = method.evaluate(model, series, gradient=gradient)
     return (ev.value, ev.grad) if gradient else ev.value
 
 
 def posterior(model, series, method=None) -> Posterior:
     """Posterior of the process given ``series``; call ``.predict(t)`` on it."""
-    method = _check_inputs(model, series, method or default_method(model, series))
+    method = _check_inputs(model, series, method)
     return method.posterior(model, series)
 
 
@@ -145,7 +145,7 @@ def fit(model, series, method=None, *, restarts: int = 0, seed: int = 0,
     FitResult
         A fit that did not converge is reported (``converged=False``), not raised.
     """
-    method = _check_inputs(model, series, method or default_method(model, series))
+    method = _check_inputs(model, series, method)
     if restarts < 0:
         raise ValueError(f"restarts must be >= 0, got {restarts}")
     start_time = time.perf_counter()
