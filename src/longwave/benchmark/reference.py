@@ -2,8 +2,9 @@
 
 Reference policy:
 
-* the kernel has an exact state-space form: Kalman on the whole series. It
-  is exact at any n, so every method is compared on all the data;
+* the kernel has an exact state-space form (no approximation: zero
+  ``covariance_error_bound``): Kalman on the whole series. It is exact at
+  any n, so every method is compared on all the data;
 * otherwise: Exact on the largest contiguous stretch it can afford (at most
   ``max_n`` points, default 5000: the dense factor then takes 200 MB and an
   evaluation with gradient tens of seconds on two cores). Every method is
@@ -78,6 +79,16 @@ def largest_stretch(t, max_n: int) -> tuple[int, int]:
     return start, start + max_n
 
 
+def exact_state_space(kernel) -> bool:
+    """Whether the kernel's state-space form is exact (zero covariance error bound).
+
+    Approximate forms (a truncated Fourier series, a rational spectral fit)
+    report a positive :meth:`~longwave.kernels.Kernel.covariance_error_bound`;
+    Kalman on them is itself an approximation, so it cannot be the reference.
+    """
+    return bool(kernel.has_state_space) and kernel.covariance_error_bound() == 0.0
+
+
 def choose_reference(model, series, max_n: int = DEFAULT_REFERENCE_MAX_N) -> ReferencePlan:
     """Apply the reference policy of the module docstring.
 
@@ -92,7 +103,7 @@ def choose_reference(model, series, max_n: int = DEFAULT_REFERENCE_MAX_N) -> Ref
     -------
     ReferencePlan
     """
-    if model.kernel.has_state_space:
+    if exact_state_space(model.kernel):
         method = resolve("kalman")
         method.check(model, series)
         return ReferencePlan(
@@ -110,9 +121,15 @@ def choose_reference(model, series, max_n: int = DEFAULT_REFERENCE_MAX_N) -> Ref
     )
     return ReferencePlan(
         method, f"exact:max_n={max_n}", start, stop, series.n,
-        f"the kernel has no exact state-space form, so dense Exact inference is the "
-        f"reference on {where}; every method is compared there",
+        f"the kernel has no exact state-space form ({_why_not(model.kernel)}), so dense "
+        f"Exact inference is the reference on {where}; every method is compared there",
     )
+
+
+def _why_not(kernel) -> str:
+    if not kernel.has_state_space:
+        return "none at all"
+    return f"its form's covariance error is up to {kernel.covariance_error_bound():.3g}"
 
 
 @dataclass(frozen=True)

@@ -199,6 +199,21 @@ def _prefix_scaling(method, model, train, label, steps, last=None) -> ScalingCur
     return finish_curve(curve)
 
 
+def check_settings(candidates, n: int) -> None:
+    """Reject settings that cannot make sense for ``n`` compared points.
+
+    A setting whose ``describe()`` reports an ``inducing`` count of ``n`` or
+    more is no approximation: it costs more than Exact on the same points.
+    """
+    for cand in candidates:
+        m = cand.method.describe().get("inducing")
+        if isinstance(m, int) and m >= n:
+            raise ValueError(
+                f"method setting {cand.label!r}: {m} inducing points for {n} compared "
+                f"(training) points; the count must be below n, for example m={max(n // 8, 1)}"
+            )
+
+
 def run_benchmark(series: Series, model, candidates, *, tolerance: Tolerance | None = None,
                   seed: int = 0, reference_max_n: int = DEFAULT_REFERENCE_MAX_N,
                   holdout: Holdout | None = None, fit: bool = True, restarts: int = 0,
@@ -248,6 +263,7 @@ def run_benchmark(series: Series, model, candidates, *, tolerance: Tolerance | N
     train = split.train
     if train.n < 3:
         raise ValueError(f"need at least 3 training points after hold-out, got {train.n}")
+    check_settings(candidates, train.n)
     say(f"reference {plan.label}: {plan.reason}")
     ref_fit, ref_cost = time_call(fit_model, model, train, method=plan.method,
                                   restarts=restarts, seed=seed)
