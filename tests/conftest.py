@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from longwave import Model, Series
-from longwave.kernels import Matern12, Matern32, Matern52
+from longwave.kernels import Matern12, Matern32, Matern52, Primitive
 
 # Kernels with a state-space form, by id: the three Matérn orders and a sum.
 # Scales are in units of the mean time step of the series factory (1.0).
@@ -26,6 +26,25 @@ KERNEL_CASES = {
     "matern32+matern12": lambda: Matern32(amplitude=1.0, scale=12.0)
     + Matern12(amplitude=0.4, scale=2.0),
 }
+
+
+class NoStateSpace(Primitive):
+    """A kernel without a state-space form, written the way DEVELOPERS.md says to add one.
+
+    ``k(tau) = amplitude^2 / (1 + (tau / scale)^2)``: positive definite, being the
+    Fourier transform of ``exp(-scale |w|)`` (Bochner's theorem, R&W 2006, Theorem 4.1).
+    It sends code down the dense paths (Exact, dense prior draws).
+    """
+
+    param_names_local = ("amplitude", "scale")
+    default_label = "nostatespace"
+
+    def _value(self, tau, amplitude, scale):
+        return amplitude**2 / (1 + (tau / scale) ** 2)
+
+    def _grad(self, tau, amplitude, scale):
+        r2 = (tau / scale) ** 2
+        return np.stack([2 * amplitude**2 / (1 + r2), 2 * amplitude**2 * r2 / (1 + r2) ** 2])
 
 
 def make_kernel(case: str):

@@ -7,11 +7,11 @@ import math
 
 import numpy as np
 import pytest
-from conftest import central_difference, kernel_scale
+from conftest import NoStateSpace, central_difference, kernel_scale
 from scipy.linalg import expm, solve_continuous_lyapunov
 from scipy.special import gamma, kv
 
-from longwave.kernels import Matern12, Matern32, Matern52, Primitive, Product, Sum
+from longwave.kernels import Matern12, Matern32, Matern52, Product, Sum
 
 ORDERS = {Matern12: 0.5, Matern32: 1.5, Matern52: 2.5}
 
@@ -161,26 +161,12 @@ def test_sum_with_non_kernel_is_rejected():
         Matern32(amplitude=1.0, scale=1.0) + 1.0
 
 
-class _Toy(Primitive):
-    """A kernel without a state-space form, written as DEVELOPERS.md says to add one."""
-
-    param_names_local = ("amplitude", "scale")
-    default_label = "toy"
-
-    def _value(self, tau, amplitude, scale):
-        return amplitude**2 / (1 + (tau / scale) ** 2)
-
-    def _grad(self, tau, amplitude, scale):
-        r2 = (tau / scale) ** 2
-        return np.stack([2 * amplitude**2 / (1 + r2), 2 * amplitude**2 * r2 / (1 + r2) ** 2])
-
-
 def test_kernel_without_state_space_says_so():
     # source: kernels/base.py contract; Kalman must refuse such a kernel by name
     from longwave import Model, Series
     from longwave.methods import Kalman
 
-    toy = _Toy(amplitude=1.0, scale=2.0)
+    toy = NoStateSpace(amplitude=1.0, scale=2.0)
     assert not toy.has_state_space
     assert not (toy + Matern32(amplitude=1.0, scale=1.0)).has_state_space
     with pytest.raises(NotImplementedError, match="no state-space form"):
