@@ -12,7 +12,7 @@ import importlib
 import sys
 
 # Modules providing subcommands, in the order `longwave --help` lists them.
-COMMAND_MODULES = ["demo", "bench"]
+COMMAND_MODULES = ["demo", "fit", "survey", "bench"]
 
 
 def build_parser() -> argparse.ArgumentParser:
