@@ -465,3 +465,32 @@ def parse_spec(text: str) -> ModelSpec:
         raise TypeError(f"a model specification is a string, got {type(text).__name__}; "
                         "for example parse_spec('matern32 + matern12')")
     return _Parser(text).model()
+
+
+def parse_option(name: str, text: str) -> ParamSpec | None:
+    """Parse the value of a ``noise`` or ``mean`` option on its own (``param`` in the grammar).
+
+    Used by the command line's ``--noise`` and ``--mean``, which override the
+    specification's ``with`` clause.
+
+    Examples
+    --------
+    >>> parse_option("noise", "fixed 0.05")
+    ParamSpec(value=0.05, lower=None, upper=None, fixed=True)
+    >>> parse_option("noise", "none") is None
+    True
+    """
+    if name not in ("noise", "mean"):
+        raise ValueError(f"option name must be 'noise' or 'mean', got {name!r}")
+    parser = _Parser(text)
+    if parser.tok.kind == "end":
+        parser.fail(f"{name} needs a value", example="auto, none, 0.01, fixed 0, "
+                    "0.01 in [1e-4, 1]" if name == "noise" else "auto, fixed 0, 2 in [-5, 5]")
+    if name == "noise" and parser.accept("none"):
+        value = None
+    else:
+        value = parser.param(positive=name == "noise")
+    if parser.tok.kind != "end":
+        parser.fail(f"unexpected {parser.found()} after the {name} value",
+                    example="0.01 in [1e-4, 1]")
+    return value
