@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.stats import norm
+from scipy.special import ndtri
 
 #: Nominal central interval levels reported as coverage: one and two sigma-ish.
 COVERAGE_LEVELS = {"68": 0.6827, "95": 0.95}
@@ -101,7 +101,7 @@ def coverage(y, mean, var, level: float) -> float:
     """
     if not 0 < level < 1:
         raise ValueError(f"level must lie strictly between 0 and 1, got {level}")
-    z = norm.ppf(0.5 + 0.5 * level)
+    z = ndtri(0.5 + 0.5 * level)
     inside = np.abs(np.asarray(y) - np.asarray(mean)) <= z * np.sqrt(np.asarray(var))
     return float(inside.mean())
 
