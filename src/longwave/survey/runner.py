@@ -40,9 +40,6 @@ from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch
 from .spec import ModelSpec, parse_spec
 from .summary import SurveySummary, Tally
 
-# Seconds allowed to reach a given scheduler and to see a worker there.
-CONNECT_TIMEOUT = 30.0
-
 
 class _Writer:
     """The single consumer: writes results and predictions, tallies, moves the bar."""
@@ -109,12 +106,12 @@ def _run_distributed(client, batches, config, writer, in_flight: int, retries: i
         raise
 
 
-def _connect(stack, workers, scheduler, quiet):
+def _connect(stack, workers, scheduler, quiet, timeout):
     """A client: to the given scheduler, or to an embedded local cluster."""
     level = logging.ERROR if quiet else logging.WARNING
     if scheduler:
         try:
-            client = stack.enter_context(Client(scheduler, timeout=CONNECT_TIMEOUT))
+            client = stack.enter_context(Client(scheduler, timeout=timeout))
         except OSError as exc:
             raise ValueError(
                 f"cannot reach a dask scheduler at {scheduler!r} ({exc}); start one with "
@@ -122,10 +119,10 @@ def _connect(stack, workers, scheduler, quiet):
                 "example --scheduler tcp://127.0.0.1:8786, or leave --scheduler out to use "
                 "an embedded cluster") from exc
         try:
-            client.wait_for_workers(1, timeout=CONNECT_TIMEOUT)
+            client.wait_for_workers(1, timeout=timeout)
         except TimeoutError as exc:
             raise ValueError(
-                f"the scheduler at {scheduler} has no workers after {CONNECT_TIMEOUT:.0f} s; "
+                f"the scheduler at {scheduler} has no workers after {timeout:.0f} s; "
                 f"start one with `dask worker {scheduler} --nthreads 1`") from exc
         info = client.scheduler_info()["workers"]
         return client, len(info), sum(w["nthreads"] for w in info.values()), scheduler
@@ -155,7 +152,7 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
                scheduler=None, resume: bool = False, overwrite: bool = False,
                batch_size: int = 64, in_flight=None, retries: int = 2, columns=None,
                progress: bool = True, quiet: bool = False,
-               flush_seconds: float = 10.0) -> SurveySummary:
+               flush_seconds: float = 10.0, connect_timeout: float = 30.0) -> SurveySummary:
     """Fit every object of a survey and write one result row per object.
 
     Parameters
@@ -195,6 +192,8 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
     flush_seconds : float, default 10.0
         Buffered results are written at least this often, which bounds the
         work a killed run loses.
+    connect_timeout : float, default 30.0
+        Seconds allowed to reach ``scheduler`` and to find a worker there.
 
     Returns
     -------
@@ -212,6 +211,14 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
                             grid=grid, inducing=inducing)
     with ExitStack() as stack:
         source = stack.enter_context(SurveyInput(input, columns=columns))
+        # The cluster comes before the store, so that an unreachable scheduler
+        # leaves no empty result file behind.
+        client = None
+        if scheduler or workers:
+            client, used, threads, address = _connect(stack, workers, scheduler, quiet,
+                                                      connect_timeout)
+        else:
+            used, threads, address = 0, 0, "serial"
         store = stack.enter_context(ResultStore(
             out, param_names=param_names(spec), config=config.describe(), resume=resume,
             overwrite=overwrite, model={"spec": spec.text}, flush_seconds=flush_seconds))
@@ -222,11 +229,9 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
         tally = Tally()
         writer = _Writer(store, set(done), bar, tally)
         batches = source.batches(int(batch_size), skip=done)
-        if not scheduler and workers == 0:
+        if client is None:
             _run_serial(batches, config, writer)
-            used, address = 0, "serial"
         else:
-            client, used, threads, address = _connect(stack, workers, scheduler, quiet)
             _run_distributed(client, batches, config, writer,
                              int(in_flight or 2 * max(threads, 1)), int(retries))
     return tally.summary(out=str(out), skipped=len(done), workers=used, scheduler=address,
