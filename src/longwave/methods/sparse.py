@@ -125,9 +125,9 @@ class SparseMethod(Method):
         return f"{type(self).__name__}(inducing={shown}, placement={self.placement!r})"
 
     def check(self, model, series) -> None:
-        require_noise(model, series, type(self).__name__)
         if not isinstance(series, ChunkedSeries):
             ChunkedSeries.of(series)  # raises TypeError naming the accepted types
+        require_noise(model, series, type(self).__name__)
 
     def inducing_times(self, model, series) -> np.ndarray:
         """The inducing times this method uses for ``(model, series)``."""
@@ -251,8 +251,7 @@ class VFE(SparseMethod):
 
     def _value_pass(self, model, source, setup):
         acc = self._run("value", self._context(model, setup), source)
-        s = setup.linv @ acc.mat @ setup.linv.T
-        cw = setup.linv @ acc.vec
+        s, cw = acc.mat, acc.vec
         lower, upper, trace_w, solved = obj.vfe_bounds(
             s, cw, acc.sum_rr, acc.sum_log, acc.sum_w, acc.n, setup.kd)
         return acc, s, solved, lower, upper, trace_w
@@ -263,8 +262,8 @@ class VFE(SparseMethod):
                   "trace_term": trace_w, "n_inducing": float(setup.z.size)}
         if not gradient:
             return Evaluation(lower, None, extras), None
-        g_phi, g_uu, g = obj.vfe_adjoints(solved, s, setup.linv)
-        ctx = self._context(model, setup, adj_mat=g_phi, adj_vec=g,
+        core, g_uu = obj.vfe_adjoints(solved, s, setup.linv)
+        ctx = self._context(model, setup, adj_mat=core, adj_vec=solved.g_hat,
                             n_grad=model.n_kernel_params, with_z=with_z)
         acc2 = self._run("grad", ctx, source)
         grad, gz = self._assemble(model, setup, acc2, g_uu, -0.5 * acc.sum_w, with_z)

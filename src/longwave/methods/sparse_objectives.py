@@ -109,25 +109,25 @@ def vfe_bounds(s, cw, sum_rr, sum_log, sum_w, n, kd):
 
 
 def vfe_adjoints(solved: Solved, s, linv):
-    """Derivatives of the VFE bound w.r.t. ``Phi``, ``b`` and ``Kuu``.
+    """Derivatives of the VFE bound w.r.t. ``Phi``, ``b`` and ``Kuu``, whitened.
 
     With ``Sigma = Kuu + Phi``, ``g = Sigma^-1 b`` (Titsias 2009, eq. 9
     differentiated; whitened with ``Kuu^-1 = Linv^T Linv``)::
 
         dF/db   = g = Linv^T g_hat
-        dF/dPhi = (Kuu^-1 - Sigma^-1 - g g^T) / 2
-                = Linv^T (I - B^-1 - g_hat g_hat^T) Linv / 2
-        dF/dKuu = Linv^T (I - B^-1 - g_hat g_hat^T - S) Linv / 2
+        dF/dPhi = (Kuu^-1 - Sigma^-1 - g g^T) / 2 = Linv^T C Linv / 2,
+                  C = I - B^-1 - g_hat g_hat^T
+        dF/dKuu = Linv^T (C - S) Linv / 2
 
     Returns
     -------
-    g_phi, g_uu : ndarray of shape (m, m)
-    g : ndarray of shape (m,)
+    core : ndarray of shape (m, m)
+        ``C``, which the gradient pass applies to whitened blocks.
+    g_uu : ndarray of shape (m, m)
+        ``dF/dKuu``.
     """
     core = np.eye(s.shape[0]) - solved.b_inv() - np.outer(solved.g_hat, solved.g_hat)
-    g_phi = 0.5 * linv.T @ core @ linv
-    g_uu = 0.5 * linv.T @ (core - s) @ linv
-    return _sym(g_phi), _sym(g_uu), linv.T @ solved.g_hat
+    return _sym(core), _sym(0.5 * linv.T @ (core - s) @ linv)
 
 
 def fitc_kuu_adjoint(solved: Solved, delta_aa, linv):

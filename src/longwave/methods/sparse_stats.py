@@ -11,9 +11,9 @@ Notation (Titsias 2009; Snelson & Ghahramani 2006): inducing times ``z``
 ``r = y - mean``, noise variance ``s2_i = err_i^2 + excess^2`` and weight
 ``w_i = 1 / s2_i``, prior variance ``kd = k(0)``.
 
-* VFE value pass: ``Phi = sum_i w_i k_i k_i^T``, ``b = sum_i w_i r_i k_i``, and
-  the sums of ``w r^2``, ``log s2``, ``w`` (one BLAS syrk per chunk; whitened
-  once at the end as ``S = Linv Phi Linv^T``).
+* VFE value pass: whitened columns ``a_i = Linv k_i``,
+  ``S = sum_i w_i a_i a_i^T = Linv Phi Linv^T``, ``cw = sum_i w_i r_i a_i``, and
+  the sums of ``w r^2``, ``log s2``, ``w`` (one product and one syrk per chunk).
 * FITC value pass: whitened columns ``a_i = Linv k_i``, ``q_i = |a_i|^2``,
   ``D_i = s2_i + kd - q_i``; ``S_F = sum a_i a_i^T / D_i``, ``c_F = sum a_i r_i / D_i``,
   the sums of ``r^2 / D`` and ``log D``; and the VFE statistics (whitened) for
@@ -75,11 +75,11 @@ class ChunkContext:
     mean, excess_var, kd : float
         Constant mean, excess noise variance, prior variance ``k(0)``.
     linv : ndarray of shape (m, m)
-        Inverse Cholesky factor of ``Kuu`` (FITC passes; VFE gradient pass uses it too).
+        Inverse Cholesky factor of ``Kuu``.
     adj_mat : ndarray of shape (m, m) or None
-        Gradient passes: ``G_Phi`` (VFE) or ``B_F^-1`` (FITC).
+        Gradient passes: ``C = I - B^-1 - g_hat g_hat^T`` (VFE) or ``B_F^-1`` (FITC).
     adj_vec : ndarray of shape (m,) or None
-        Gradient passes: ``g = Sigma^-1 b`` (VFE) or ``B_F^-1 c_F`` (FITC).
+        Gradient passes: ``g_hat = B^-1 cw`` (VFE) or ``B_F^-1 c_F`` (FITC).
     n_grad : int
         Number of kernel parameters (length of the kernel gradient).
     with_z : bool
@@ -103,14 +103,22 @@ def _noise(ctx, err):
 
 
 def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
-    """Fill ``n, mat (Phi), vec (b), sum_rr, sum_log, sum_w``."""
+    """Fill ``n, mat (S), vec (cw), sum_rr, sum_log, sum_w`` (whitened statistics).
+
+    Whitening each block (``a_i = Linv k_i``) before the products keeps the
+    bound a smooth function of the hyperparameters even when ``Kuu`` is
+    ill-conditioned; accumulating ``Kuf W Kfu`` first and whitening the total
+    would save a product per chunk but leaves round-off of order
+    ``eps * cond(Kuu)`` in the value, which ruins finite-difference checks
+    and line searches.
+    """
     s2 = _noise(ctx, err)
     w = 1.0 / s2
-    sw = np.sqrt(w)
     r = y - ctx.mean
-    ks = ctx.blocks.block(ctx.z, t, sw)  # K diag(sqrt(w)): Phi is one syrk
-    acc.mat += ks @ ks.T
-    acc.vec += ks @ (sw * r)
+    a = ctx.linv @ ctx.blocks.block(ctx.z, t, np.ones(t.size))
+    aw = a * np.sqrt(w)
+    acc.mat += aw @ aw.T
+    acc.vec += a @ (w * r)
     acc.n += t.size
     acc.sum_rr += float(w @ (r * r))
     acc.sum_log += float(np.log(s2).sum())
@@ -118,26 +126,28 @@ def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
 
 
 def vfe_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
-    """Fill ``grad, grad_z, sum_dnoise, sum_dresid`` from ``G_Phi`` and ``g``.
+    """Fill ``grad, grad_z, sum_dnoise, sum_dresid`` from the whitened adjoint.
 
-    With ``dF/dPhi = G_Phi`` and ``dF/db = g`` (``sparse_objectives.vfe``), the
-    chain rule through ``Phi = sum w k k^T``, ``b = sum w r k`` gives per point
-    ``dF/dk_i = w_i (2 G_Phi k_i + r_i g)`` and
-    ``dF/dw_i = k_i^T G_Phi k_i + r_i g^T k_i - r_i^2 / 2 + 1 / (2 w_i) - kd / 2``.
+    With ``dF/dPhi = Linv^T C Linv / 2`` and ``dF/db = Linv^T g_hat``
+    (``C = I - B^-1 - g_hat g_hat^T``, see ``sparse_objectives.vfe_adjoints``),
+    the chain rule through ``Phi = sum w k k^T``, ``b = sum w r k`` gives per point
+    ``dF/dk_i = w_i Linv^T (C a_i + r_i g_hat)`` and
+    ``dF/dw_i = a_i^T C a_i / 2 + r_i g_hat^T a_i - r_i^2 / 2 + 1 / (2 w_i) - kd / 2``.
     """
     s2 = _noise(ctx, err)
     w = 1.0 / s2
     r = y - ctx.mean
-    k = ctx.blocks.block(ctx.z, t, np.ones(t.size))
-    v = ctx.adj_mat @ k
-    kgk = np.einsum("ac,ac->c", k, v)
-    gk = ctx.adj_vec @ k
-    v *= 2.0 * w
-    v += np.outer(ctx.adj_vec, w * r)  # v is now the adjoint dF/dK of the chunk
-    ctx.blocks.contract(ctx.z, t, v, ctx.with_z, acc.grad, acc.grad_z)
-    dw = kgk + r * gk - 0.5 * r * r + 0.5 * s2 - 0.5 * ctx.kd
+    a = ctx.linv @ ctx.blocks.block(ctx.z, t, np.ones(t.size))
+    x = ctx.adj_mat @ a
+    aca = np.einsum("ac,ac->c", a, x)
+    ga = ctx.adj_vec @ a
+    x += np.outer(ctx.adj_vec, r)
+    x *= w
+    adj = ctx.linv.T @ x  # dF/dK of the chunk
+    ctx.blocks.contract(ctx.z, t, adj, ctx.with_z, acc.grad, acc.grad_z)
+    dw = 0.5 * aca + r * ga - 0.5 * r * r + 0.5 * s2 - 0.5 * ctx.kd
     acc.sum_dnoise += float(-(w * w) @ dw)
-    acc.sum_dresid += float(w @ (gk - r))
+    acc.sum_dresid += float(w @ (ga - r))
     acc.n += t.size
 
 
