@@ -7,7 +7,8 @@ Kalman. Tolerances:
 * Hyperparameters: the observed information (minus the Hessian of the log
   likelihood at the optimum, by central differences of the analytic
   gradient) gives the asymptotic covariance of the maximum-likelihood
-  estimate (Cramér 1946; e.g. Pawitan 2001, "In All Likelihood", sec. 9.3).
+  estimate (Cramér 1946; Pawitan 2001, "In All Likelihood", ch. 9, chapter
+  from memory).
   Each free coordinate must lie within 4 of its standard errors of the truth
   (two-sided probability 6e-5 per parameter if the asymptotics hold).
 * Coverage: 1000 held-out latent values, spaced ~6 length scales apart so
