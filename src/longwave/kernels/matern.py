@@ -154,7 +154,7 @@ class Matern32(_Matern):
     --------
     >>> k = Matern32(amplitude=1.0, scale=2.0)
     >>> round(float(k.value(2.0)), 6)
-    0.483368
+    0.483358
     """
 
     order = 2
