@@ -37,7 +37,7 @@ class Exact(Method):
     >>> s = Series([0.0, 1.0, 2.5], [0.1, 0.3, -0.2], err=0.1)
     >>> round(log_marginal_likelihood(Model(Matern32(amplitude=1.0, scale=1.0)), s,
     ...                               method=Exact()), 6)
-    -2.172932
+    -2.691496
     """
 
     name = "exact"
