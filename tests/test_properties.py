@@ -20,8 +20,9 @@ What is checked, and with what tolerance:
   K^-1 and degrades like kappa^2, so it is compared within
   (1e-10 + 1e-14 kappa^2) max(1, |grad|) for kappa <= 1e6 only. (The
   constants are ~40x the worst seen over 3000 random draws of this strategy.)
-* The filtered covariances from the compiled filter are exactly symmetric
-  and positive semidefinite to within 1e-12 of the largest eigenvalue of Pinf.
+* The filtered and smoothed covariances from the compiled loops are exactly
+  symmetric and positive semidefinite to within 1e-12 of the largest
+  eigenvalue of Pinf.
 """
 
 from __future__ import annotations
@@ -123,17 +124,21 @@ def test_kalman_equals_exact_within_conditioning(problem):
 
 @SETTINGS
 @given(problems())
-def test_filtered_covariances_are_symmetric_psd(problem):
+def test_filtered_and_smoothed_covariances_are_symmetric_psd(problem):
     model, series, _ = problem
     ss = model.kernel.state_space()
     n, d = series.n, ss.dim
+    trans = (ss.rate, ss.freq, ss.cos_coef, ss.sin_coef)
     mf, Pf = np.empty((n, d)), np.empty((n, d, d))
+    ms, Ps = np.empty((n, d)), np.empty((n, d, d))
     loops.filter_store(series.t, series.y - model.mean_value, model.noise_variance(series.err),
-                       ss.H, ss.Pinf, (ss.rate, ss.freq, ss.cos_coef, ss.sin_coef), mf, Pf)
-    assert np.all(np.isfinite(mf)) and np.all(np.isfinite(Pf))
-    np.testing.assert_array_equal(Pf, np.swapaxes(Pf, 1, 2))
+                       ss.H, ss.Pinf, trans, mf, Pf)
+    loops.smooth(series.t, ss.Pinf, trans, mf, Pf, ms, Ps)
     floor = -1e-12 * np.linalg.eigvalsh(ss.Pinf).max()
-    assert np.linalg.eigvalsh(Pf).min() >= floor
+    for means, covs in [(mf, Pf), (ms, Ps)]:
+        assert np.all(np.isfinite(means)) and np.all(np.isfinite(covs))
+        np.testing.assert_array_equal(covs, np.swapaxes(covs, 1, 2))
+        assert np.linalg.eigvalsh(covs).min() >= floor
 
 
 # --- cheap properties of the inputs -------------------------------------------------
