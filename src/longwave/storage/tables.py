@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import gzip
 import io
+import itertools
 from pathlib import Path
 
 import numpy as np
@@ -97,17 +98,24 @@ def resolve_columns(available, columns=None, *, source="table", need_id=True) ->
 
 
 # --- sources: (column names, iterator of (first row number, {name: ndarray})) ---
-def _to_float(values, name, first_row, where):
+def _to_float(values, name, where):
+    """Floats from a column chunk; CSV text may hold blanks (missing values, read as NaN)."""
     try:
         return np.asarray(values, dtype=np.float64)
     except (TypeError, ValueError):
-        for i, v in enumerate(values):
-            try:
-                float(v)
-            except (TypeError, ValueError):
-                raise ValueError(f"{where(first_row + i)}: column {name!r} must be numeric, got "
-                                 f"{v!r}") from None
-        raise
+        pass
+    if isinstance(values, (list, tuple)):
+        values = [v if v.strip() else "nan" for v in values]
+        try:
+            return np.asarray(values, dtype=np.float64)
+        except ValueError:
+            pass
+    for i, v in enumerate(values):
+        try:
+            float(v)
+        except (TypeError, ValueError):
+            raise ValueError(f"{where(i)}: column {name!r} must be numeric, got {v!r}") from None
+    return np.asarray(values, dtype=np.float64)
 
 
 def _open_text(path):
@@ -127,25 +135,34 @@ def csv_source(path, chunk_rows, *, delimiter=","):
 
     def chunks(wanted):
         cols = [header.index(w) for w in wanted]
+        width = len(header)
         while True:
-            rows, lines = [], []
-            for row in reader:
-                if not row:
-                    continue  # blank line
-                if len(row) != len(header):
-                    raise ValueError(f"{path}, line {reader.line_num}: {len(row)} fields, "
-                                     f"the header has {len(header)}")
-                rows.append(row)
-                lines.append(reader.line_num)
-                if len(rows) == chunk_rows:
-                    break
+            first = reader.line_num + 1
+            rows = list(itertools.islice(reader, chunk_rows))
             if not rows:
                 return
+            if reader.line_num - first + 1 == len(rows) and set(map(len, rows)) == {width}:
+                lines = np.arange(first, reader.line_num + 1)  # one line per row: common case
+            else:
+                rows, lines = _locate_rows(rows, first, width, path)
+                if not rows:
+                    continue
             fields = list(zip(*rows))
-            yield np.array(lines), {w: [f.strip() for f in fields[c]]
-                                    for w, c in zip(wanted, cols)}
+            yield lines, {w: fields[c] for w, c in zip(wanted, cols)}
 
     return header, chunks, (lambda line: f"{path}, line {line}"), fh.close
+
+
+def _locate_rows(rows, first, width, path):
+    """Drop blank rows and find each row's line, allowing quoted fields with newlines."""
+    spans = np.array([1 + sum(f.count("\n") for f in r) for r in rows])
+    starts = first + np.cumsum(spans) - spans
+    keep = [i for i, r in enumerate(rows) if r]
+    for i in keep:
+        if len(rows[i]) != width:
+            raise ValueError(f"{path}, line {starts[i]}: {len(rows[i])} fields, the header has "
+                             f"{width}")
+    return [rows[i] for i in keep], starts[keep]
 
 
 def parquet_source(path, chunk_rows):
@@ -199,6 +216,8 @@ def _open_source(path, fmt, chunk_rows, hdu):
 
 
 def _as_ids(values) -> np.ndarray:
+    if isinstance(values, (list, tuple)):  # CSV text
+        return np.array(list(map(str.strip, values)), dtype=str)
     arr = np.asarray(values)
     if arr.dtype.kind == "S":
         arr = np.char.decode(arr, "utf-8")
@@ -251,7 +270,7 @@ def _group(path, names, chunks, where, columns, meta):
     current = None  # (id, lists of arrays per role, meta values, first row)
     for rows, chunk in chunks(wanted):
         ids = _as_ids(chunk[roles["id"]])
-        num = {role: _to_float(_blank_to_nan(chunk[roles[role]]), roles[role], 0,
+        num = {role: _to_float(chunk[roles[role]], roles[role],
                                lambda i, rows=rows: where(rows[i]))
                for role in ("time", "value", "error") if roles[role] is not None}
         starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
@@ -274,12 +293,6 @@ def _group(path, names, chunks, where, columns, meta):
             _extend(current, num, chunk, meta, a, b, where, rows)
     if current is not None:
         yield _finish(current)
-
-
-def _blank_to_nan(values):
-    if isinstance(values, list):  # CSV text: an empty field is a missing value
-        return [v if v else "nan" for v in values]
-    return values
 
 
 def _extend(current, num, chunk, meta, a, b, where, rows):
@@ -347,7 +360,7 @@ def read_object_csv(path, *, columns=None) -> tuple[np.ndarray, np.ndarray, np.n
         parts = {role: [] for role in ("time", "value", "error") if roles[role] is not None}
         for rows, chunk in chunks(wanted):
             for role in parts:
-                parts[role].append(_to_float(_blank_to_nan(chunk[roles[role]]), roles[role], 0,
+                parts[role].append(_to_float(chunk[roles[role]], roles[role],
                                              lambda i, rows=rows: where(rows[i])))
     finally:
         close()
