@@ -32,7 +32,7 @@ KERNELS = {
 
 
 def model_for(kernel, parameters):
-    """Models over which the gradient is taken: everything free, some fixed, no excess."""
+    """Models over which the gradient is taken (free and fixed mixes, with and without noise)."""
     amp = kernel_amplitude(kernel)
     if parameters == "all free":
         return Model(kernel, mean=0.2, excess_noise=0.1 * amp)
@@ -43,10 +43,14 @@ def model_for(kernel, parameters):
                      excess_noise=0.1 * amp)
     if parameters == "no excess noise":
         return Model(kernel, mean=-0.1)
+    if parameters == "kernel fixed":
+        held = kernel.with_params([Param(p.value, fixed=True) for p in kernel.params()])
+        return Model(held, mean=0.2, excess_noise=0.1 * amp)
     raise AssertionError(parameters)
 
 
-@pytest.mark.parametrize("parameters", ["all free", "some fixed", "no excess noise"])
+@pytest.mark.parametrize("parameters",
+                         ["all free", "some fixed", "no excess noise", "kernel fixed"])
 @pytest.mark.parametrize("kernel_id", sorted(KERNELS))
 @pytest.mark.parametrize("method_name", sorted(REGISTRY))
 def test_gradient_equals_central_differences(method_name, kernel_id, parameters, rng):
