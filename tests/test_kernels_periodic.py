@@ -98,3 +98,30 @@ def test_cosine_value_and_variance():
     np.testing.assert_allclose(kernel.value([0.0, 1.0, 2.0, 4.0]), [0.25, 0.0, -0.25, 0.25],
                                atol=1e-15)
     assert kernel.variance() == 0.25
+
+
+def test_automatic_order_is_continuous_in_scale():
+    # the tapered last harmonic makes the state-space covariance continuous where the
+    # automatic order steps (module docstring of kernels/periodic.py): just below and
+    # above a step the covariances differ only by the scale change itself
+    scales = np.geomspace(0.2, 2.0, 400)
+    orders = np.array([default_order(s) for s in scales])
+    step = int(np.flatnonzero(np.diff(orders))[0])
+    tau = np.linspace(0.0, 1.0, 51)
+
+    def k_ss(scale):
+        ss = Periodic(amplitude=1.0, period=1.0, scale=scale).state_space()
+        return np.einsum("a,tab,b->t", ss.H, ss.transition(tau) @ ss.Pinf, ss.H), ss.dim
+
+    lo, hi = scales[step], scales[step + 1]
+    # bisect to the step, then compare the two sides 1e-10 apart
+    for _ in range(40):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if default_order(mid) == orders[step] else (lo, mid)
+    (a, dim_a), (b, dim_b) = k_ss(lo), k_ss(hi)
+    assert dim_a != dim_b
+    np.testing.assert_allclose(a, b, rtol=0, atol=1e-8)
+    # and the error is the budget exactly, everywhere on the automatic path
+    for scale in [0.25, 0.6, 1.4]:
+        kernel = Periodic(amplitude=1.5, period=1.0, scale=scale)
+        assert kernel.covariance_error_bound() == pytest.approx(DEFAULT_TOLERANCE * 2.25, rel=1e-9)

@@ -157,7 +157,11 @@ class SquaredExp(Primitive):
         Length scale (time units).
     order : int, optional
         Order of the spectral approximation (state dimension), 1 to 12.
-        Default 8, the smallest with covariance error at most 1e-3 of the variance.
+        Default: the smallest with covariance error at most ``tolerance`` of the
+        variance (8 for the default 1e-3). The scale only stretches time, so the
+        order, fixed at construction, keeps its error while fitting.
+    tolerance : float, default 1e-3
+        Used when ``order`` is not given; 12 (the highest order) reaches about 3e-5.
     label : str, optional
         Prefix of the hyperparameter names in a model, default ``"squared_exp"``.
 
@@ -174,7 +178,8 @@ class SquaredExp(Primitive):
     default_label = "squared_exp"
     has_state_space_form = True
 
-    def __init__(self, *, order: int | None = None, label: str | None = None, **values):
+    def __init__(self, *, order: int | None = None, tolerance: float = DEFAULT_TOLERANCE,
+                 label: str | None = None, **values):
         if order is not None and (
             isinstance(order, bool) or int(order) != order or not 1 <= order <= MAX_ORDER
         ):
@@ -183,7 +188,7 @@ class SquaredExp(Primitive):
                 f"{order!r}; for example order=8, or leave it out for the automatic choice"
             )
         super().__init__(label=label, **values)
-        self.order = default_order() if order is None else int(order)
+        self.order = default_order(tolerance) if order is None else int(order)
 
     def covariance_error_bound(self) -> float:
         """Maximum over ``tau`` of ``|k_ss(tau) - k(tau)|`` (exact, attained at 0)."""
