@@ -129,7 +129,7 @@ class BlockKalman(Method):
     >>> s = Series([0.0, 1.0, 2.5], [0.1, 0.3, -0.2], err=0.1)
     >>> round(log_marginal_likelihood(Model(Matern32(amplitude=1.0, scale=1.0)), s,
     ...                               method=BlockKalman()), 6)
-    -2.172932
+    -2.691496
     """
 
     name = "kalman_blocks"
