@@ -97,6 +97,7 @@ def test_result_store_survives_sigkill_and_resumes_exactly(tmp_path):
     table = _check_consistent(path, flushed)
     assert sorted(table.id.tolist()) == [f"obj-{i:04d}" for i in range(N_OBJECTS)]
     assert table.merged and not (tmp_path / "results.h5.journal").exists()
+    assert not list(tmp_path.glob(".results.h5.*.tmp"))  # interrupted merges cleaned up
     for i in (0, 3, 297):
         t, mean, std = ResultStore.read_prediction(path, f"obj-{i:04d}")
         np.testing.assert_array_equal(mean, t * i)

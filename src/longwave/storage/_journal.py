@@ -12,6 +12,7 @@ Names, for a store at ``results.h5``::
     results.h5.journal/part-0000000007.h5   batch 7 (ignored if 7 <= k)
     results.h5.journal/.part-*.tmp          an interrupted write (deleted on open)
     results.h5.lock               advisory lock held by the one writer
+    .results.h5.*.tmp             an interrupted merge (deleted on open)
 """
 
 from __future__ import annotations
@@ -62,6 +63,17 @@ def clean(jdir: Path, merged_through: int) -> None:
         if name.endswith(".tmp"):
             with contextlib.suppress(FileNotFoundError):
                 (jdir / name).unlink()
+
+
+def clean_main_temps(path) -> None:
+    """Remove temporary copies of the main file left by a merge that was killed.
+
+    Only the writer calls this, holding the lock, so no live temporary can match.
+    """
+    path = Path(path)
+    for tmp in path.parent.glob(f".{path.name}.*.tmp"):
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
 
 
 def remove_if_empty(jdir: Path) -> None:

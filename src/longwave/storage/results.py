@@ -345,6 +345,7 @@ class ResultStore:
             self._seq = max([attrs["journal_merged_through"]]
                             + [s for s, _ in _journal.list_parts(self._jdir)])
             _journal.clean(self._jdir, attrs["journal_merged_through"])
+            _journal.clean_main_temps(self.path)
             with _h5.open_h5(self.path, "r", what="result store") as f:
                 self._root_attrs = {k: f.attrs[k] for k in f.attrs}
             return
