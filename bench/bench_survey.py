@@ -1,0 +1,152 @@
+"""Survey throughput: serial versus two dask workers, and client memory versus survey size.
+
+Usage::
+
+    python bench/bench_survey.py            # 10,000 objects of 1,000 points (several minutes)
+    python bench/bench_survey.py --quick    # 1,000 objects
+    python bench/bench_survey.py --objects 4000 --points 500 --data /tmp/lw-bench
+
+Every object is a Matérn-3/2 draw plus excess noise, fitted with
+``matern32`` (Kalman, chosen by ``auto``) and summarised as a survey run
+does it. Each configuration runs in its own child process, so peak memory
+(``ru_maxrss``) is that configuration's alone, and all of them run in this
+one invocation, side by side, because the machine is shared and noisy:
+
+* serial: ``workers=0``, everything in the client process;
+* two workers: an embedded LocalCluster (started first and timed apart,
+  its start-up is a fixed cost), then the survey through its address;
+* two workers on a quarter of the objects, for the memory comparison: a
+  client whose memory is flat in the number of objects peaks at the same
+  RSS for N/4 and N objects.
+
+Targets on a 2-core machine: >= 1.7x from two workers, >= 200 objects/s.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+
+def _make_survey(path: Path, n_objects: int, n_points: int, seed: int) -> None:
+    import numpy as np
+
+    import longwave as lw
+    from longwave.kernels import Matern32
+    from longwave.simulate import simulate_series
+    from longwave.storage import SurveyWriter
+
+    with SurveyWriter(path, has_err=True, overwrite=True) as writer:
+        for k in range(n_objects):
+            rng = np.random.default_rng([seed, k])
+            t = np.sort(rng.uniform(0.0, 1000.0, n_points))
+            truth = lw.Model(Matern32(amplitude=float(rng.uniform(0.5, 2.0)),
+                                      scale=float(rng.uniform(5.0, 50.0))),
+                             mean=float(rng.normal()), excess_noise=0.05)
+            series, _ = simulate_series(truth, t, err=0.1, rng=rng)
+            writer.add(f"obj{k:07d}", series.t, series.y, series.err)
+
+
+def _survey(data: Path, n_objects: int, n_points: int, seed: int = 2026) -> Path:
+    path = data / f"survey-{n_objects}x{n_points}-s{seed}.h5"
+    if not path.exists():
+        t0 = time.perf_counter()
+        _make_survey(path, n_objects, n_points, seed)
+        print(f"wrote {path} in {time.perf_counter() - t0:.1f} s", file=sys.stderr)
+    return path
+
+
+def _child(args) -> None:
+    """One configuration; prints a JSON line."""
+    from longwave.survey import run_survey
+
+    out = Path(args.out)
+    startup = 0.0
+    if args.workers == 0:
+        t0 = time.perf_counter()
+        summary = run_survey(args.input, out, model="matern32", workers=0, overwrite=True,
+                             progress=False, quiet=True)
+        wall = time.perf_counter() - t0
+    else:
+        from distributed import LocalCluster
+
+        t0 = time.perf_counter()
+        with LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
+                          host="127.0.0.1", dashboard_address=None,
+                          env={"NUMBA_NUM_THREADS": "1"}) as cluster:
+            startup = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            summary = run_survey(args.input, out, model="matern32",
+                                 scheduler=cluster.scheduler_address, overwrite=True,
+                                 progress=False, quiet=True)
+            wall = time.perf_counter() - t0
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    print(json.dumps({"processed": summary.processed, "ok": summary.by_status["ok"],
+                      "wall": wall, "startup": startup, "peak_mb": peak_mb,
+                      "median_fit": summary.median_fit_seconds}))
+
+
+def _run_child(input_path: Path, out: Path, workers: int) -> dict:
+    cmd = [sys.executable, __file__, "--child", "--input", str(input_path), "--out", str(out),
+           "--workers", str(workers)]
+    proc = subprocess.run(cmd, capture_output=True, text=True, check=False)
+    if proc.returncode != 0:
+        raise RuntimeError(f"child {cmd} failed:\n{proc.stderr}")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("--quick", action="store_true", help="1,000 objects instead of 10,000")
+    p.add_argument("--objects", type=int, help="objects (overrides --quick)")
+    p.add_argument("--points", type=int, default=1000, help="points per object")
+    p.add_argument("--data", default=os.path.join(tempfile.gettempdir(), "longwave-bench"),
+                   help="folder for the generated surveys (reused between runs)")
+    p.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
+    p.add_argument("--input", help=argparse.SUPPRESS)
+    p.add_argument("--out", help=argparse.SUPPRESS)
+    p.add_argument("--workers", type=int, default=2, help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.child:
+        _child(args)
+        return 0
+    n = args.objects or (1000 if args.quick else 10_000)
+    data = Path(args.data)
+    data.mkdir(parents=True, exist_ok=True)
+    full = _survey(data, n, args.points)
+    quarter = _survey(data, max(n // 4, 1), args.points)
+    runs = {
+        "serial": _run_child(full, data / "out-serial.h5", 0),
+        "2 workers": _run_child(full, data / "out-two.h5", 2),
+        "2 workers, N/4": _run_child(quarter, data / "out-quarter.h5", 2),
+    }
+    print(f"survey of {n} objects x {args.points} points, matern32 + excess noise, "
+          f"load average at the end {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
+    print(f"{'configuration':<18}{'objects':>9}{'wall s':>9}{'obj/s':>9}{'start s':>9}"
+          f"{'fit ms':>9}{'peak MB':>9}")
+    for name, r in runs.items():
+        print(f"{name:<18}{r['processed']:>9}{r['wall']:>9.1f}{r['processed'] / r['wall']:>9.1f}"
+              f"{r['startup']:>9.1f}{1e3 * r['median_fit']:>9.2f}{r['peak_mb']:>9.0f}")
+    serial, two, small = runs["serial"], runs["2 workers"], runs["2 workers, N/4"]
+    speedup = (two["processed"] / two["wall"]) / (serial["processed"] / serial["wall"])
+    print(f"speed-up of two workers over serial: {speedup:.2f}x (target >= 1.7x)")
+    print(f"two-worker throughput: {two['processed'] / two['wall']:.0f} objects/s "
+          f"(target >= 200), {two['processed'] / (two['wall'] + two['startup']):.0f} "
+          "objects/s counting cluster start-up")
+    extra = max(two["processed"] - small["processed"], 1)
+    per_object_kb = (two["peak_mb"] - small["peak_mb"]) * 1024 / extra
+    print(f"client peak RSS: {small['peak_mb']:.0f} MB for {small['processed']} objects, "
+          f"{two['peak_mb']:.0f} MB for {two['processed']} ({per_object_kb:.2f} kB per extra "
+          "object)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
