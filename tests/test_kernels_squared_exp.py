@@ -55,3 +55,22 @@ def test_default_order_meets_tolerance_and_is_smallest():
     assert relative_error(kernel.order - 1) > DEFAULT_TOLERANCE
     with pytest.raises(ValueError, match="from 1 to"):
         SquaredExp(amplitude=1.0, scale=1.0, order=MAX_ORDER + 1)
+
+
+def test_fit_with_kalman_approximation_matches_fit_with_exact_dense():
+    # the two objectives differ by at most the (small) covariance error, so the
+    # optima must be close (common practice: approximate vs exact fits)
+    from longwave import Model, Series, fit
+    from longwave.methods import Exact, Kalman
+
+    rng = np.random.default_rng(5)
+    t = np.sort(rng.uniform(0.0, 50.0, 200))
+    truth = SquaredExp(amplitude=1.0, scale=2.0)
+    cov = truth(t) + 0.1**2 * np.eye(t.size)
+    series = Series(t, np.linalg.cholesky(cov) @ rng.standard_normal(t.size), err=0.1)
+    start = Model(SquaredExp(amplitude=0.5, scale=1.0, order=12), mean=0.0)
+    exact = fit(start, series, method=Exact())
+    kalman = fit(start, series, method=Kalman())
+    for name in ["squared_exp.amplitude", "squared_exp.scale"]:
+        assert kalman.params[name] == pytest.approx(exact.params[name], rel=0.02)
+    assert exact.params["squared_exp.scale"] == pytest.approx(2.0, rel=0.2)
