@@ -216,3 +216,14 @@ def test_config_description_is_json_and_names_the_model():
     described = json.loads(json.dumps(config.describe()))
     assert described["model"] == "matern32 with mean=auto, noise=none"
     assert described["grid"]["step"] == 0.5
+
+
+def test_auto_goes_sparse_for_long_series_without_an_exact_form():
+    # Above AUTO_EXACT_MAX_N without an exact state-space form: VFE, whose
+    # certified bounds give the recorded gap (longwave.methods.sparse).
+    rng = np.random.default_rng(12)
+    t = np.sort(rng.uniform(0, 200, 2100))
+    y = np.sin(t / 7) + 0.1 * rng.standard_normal(t.size)
+    out = fit_object(t, y, 0.1, model_spec="squared_exp", inducing=16).result
+    assert out.method == "vfe" and out.status in ("ok", "not_converged")
+    assert np.isfinite(out.bound_gap) and out.bound_gap >= 0
