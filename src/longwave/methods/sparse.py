@@ -156,7 +156,9 @@ class SparseMethod(Method):
         kuu = blocks.square(z)
         kuu[np.diag_indices_from(kuu)] += jit
         chol = obj._chol(kuu, f"Kuu of {model.kernel!r} at {z.size} inducing times")
-        linv = solve_triangular(chol, np.eye(z.size), lower=True, check_finite=False)
+        # Fortran order: the per-chunk triangular products (sparse_stats.whiten) take it as is
+        linv = np.asfortranarray(
+            solve_triangular(chol, np.eye(z.size), lower=True, check_finite=False))
         return _Setup(blocks, z, chol, linv, kd, jit)
 
     def _context(self, model, setup, **extra) -> ChunkContext:
