@@ -148,7 +148,7 @@ def test_a_killed_worker_is_survived(survey, serial, cluster, tmp_path):
     killer.start()
     out = tmp_path / "killed.h5"
     summary = run_survey(survey[0], out, model=MODEL, scheduler=lc.scheduler_address,
-                         batch_size=8, retries=2, progress=False, quiet=True,
+                         batch_size=20, retries=2, progress=False, quiet=True,
                          grid=PredictionGrid(count=16))
     killer.join()
     assert killed, "the worker was never seen busy"

@@ -141,7 +141,7 @@ def choose_method(model, n: int, method: str = AUTO, inducing: int | None = None
         "registered; pass method='exact' to fit densely anyway")
 
 
-def _standardised(post, series, t_all, y_all, err_all):
+def _standardised(post, t_all, y_all, err_all):
     """Residuals of every point against the posterior predictive of a new observation."""
     pred = post.predict(t_all, observed=True, err=err_all)
     return (y_all - pred.mean) / np.sqrt(pred.var)
@@ -271,7 +271,7 @@ def _fit_clean(checked, spec, method, clip, max_clip_iter, grid, inducing, id, s
     evaluations = result.n_evaluations
     for _ in range(max_clip_iter if clip is not None else 0):
         err_all = full.err if full.has_err else None
-        z = _standardised(post, series, full.t, full.y, err_all)
+        z = _standardised(post, full.t, full.y, err_all)
         new_keep = np.abs(z) <= clip
         if np.array_equal(new_keep, keep):
             break
