@@ -86,7 +86,10 @@ class Kernel:
 
     @property
     def has_state_space(self) -> bool:
-        """Whether :meth:`state_space` gives an exact state-space form."""
+        """Whether :meth:`state_space` gives a state-space form.
+
+        Exact, or approximate with a reported bound (:meth:`covariance_error_bound`).
+        """
         return all(leaf.has_state_space for leaf in self.leaves())
 
     def covariance_error_bound(self) -> float:
