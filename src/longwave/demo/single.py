@@ -79,10 +79,7 @@ def run_single_series_demo(out_dir, *, n: int = 100_000, seed: int = 7,
 
 
 def _plot_window(model, series, path: Path) -> None:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    from .plots import _figure
 
     post = posterior(model, series, Kalman())
     # A ten-day window that straddles a gap between nights.
@@ -90,7 +87,8 @@ def _plot_window(model, series, path: Path) -> None:
     grid = np.linspace(lo, lo + 10.0, 2000)
     pred = post.predict(grid)
     sel = (series.t >= lo) & (series.t <= lo + 10.0)
-    fig, ax = plt.subplots(figsize=(9, 4))
+    fig = _figure(9, 4, dpi=110)
+    ax = fig.add_subplot()
     x, xs = grid - lo, series.t[sel] - lo
     ax.fill_between(x, pred.mean - 2 * pred.std, pred.mean + 2 * pred.std,
                     color="tab:blue", alpha=0.25, label="posterior ±2σ")
@@ -102,6 +100,4 @@ def _plot_window(model, series, path: Path) -> None:
     ax.invert_yaxis()
     ax.set_title("Kalman posterior of one long series (bands widen to the prior in gaps)")
     ax.legend(loc="best", fontsize=8)
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    fig.savefig(path, format="png")
