@@ -2,8 +2,8 @@
 
 Reference policy:
 
-* the kernel has an exact state-space form (no approximation: zero
-  ``covariance_error_bound``): Kalman on the whole series. It is exact at
+* the kernel has an exact state-space form (``covariance_error_bound`` at
+  most 1e-9 of the variance): Kalman on the whole series. It is exact at
   any n, so every method is compared on all the data;
 * otherwise: Exact on the largest contiguous stretch it can afford (at most
   ``max_n`` points, default 5000: the dense factor then takes 200 MB and an
@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..methods import Method, resolve
+from ..survey.pipeline import EXACT_FORM_TOLERANCE
 
 #: Default largest stretch handed to Exact as the reference.
 DEFAULT_REFERENCE_MAX_N = 5000
@@ -80,13 +81,17 @@ def largest_stretch(t, max_n: int) -> tuple[int, int]:
 
 
 def exact_state_space(kernel) -> bool:
-    """Whether the kernel's state-space form is exact (zero covariance error bound).
+    """Whether the kernel's state-space form is exact.
 
     Approximate forms (a truncated Fourier series, a rational spectral fit)
     report a positive :meth:`~longwave.kernels.Kernel.covariance_error_bound`;
     Kalman on them is itself an approximation, so it cannot be the reference.
+    "Exact" uses the survey runner's threshold (``EXACT_FORM_TOLERANCE``, 1e-9
+    of the variance), so both runners call the same kernels exact.
     """
-    return bool(kernel.has_state_space) and kernel.covariance_error_bound() == 0.0
+    if not kernel.has_state_space:
+        return False
+    return kernel.covariance_error_bound() <= EXACT_FORM_TOLERANCE * kernel.variance()
 
 
 def choose_reference(model, series, max_n: int = DEFAULT_REFERENCE_MAX_N) -> ReferencePlan:
