@@ -66,7 +66,7 @@ def test_periodic_terms_become_two_by_two_blocks():
     assert list(lay.block_sizes) == [1] + [2] * 6
 
 
-@pytest.mark.parametrize("cache", [True, False])
+@pytest.mark.parametrize("cache", [8, 1, 0])
 @pytest.mark.parametrize("case", sorted(CASES))
 def test_block_kalman_matches_dense_kalman(case, cache, rng):
     kernel = CASES[case]()
@@ -85,8 +85,9 @@ def test_block_kalman_matches_dense_kalman(case, cache, rng):
 
 
 def test_cache_on_a_regular_cadence_with_gaps_matches_exact(rng):
-    # a regular cadence with missing points: most steps repeat exactly, some do not
-    t = np.arange(400) * 0.25
+    # a regular cadence with missing points and a Julian-date offset: steps take a few
+    # distinct rounded values, so the cache's slots are all used and reused
+    t = 2.46e6 + np.arange(400) * 0.05
     keep = rng.uniform(size=t.size) > 0.2
     kernel = Matern32(amplitude=1.0, scale=3.0) * Cosine(amplitude=1.0, period=1.7)
     t = t[keep]
@@ -94,7 +95,7 @@ def test_cache_on_a_regular_cadence_with_gaps_matches_exact(rng):
     series = Series(t, y, err=0.2)
     model = Model(kernel, mean=0.0, excess_noise=0.05)
     v_e, g_e = log_marginal_likelihood(model, series, method=Exact(), gradient=True)
-    v_b, g_b = log_marginal_likelihood(model, series, method=BlockKalman(), gradient=True)
+    v_b, g_b = log_marginal_likelihood(model, series, method=BlockKalman(cache=3), gradient=True)
     assert v_b == pytest.approx(v_e, rel=1e-10)
     np.testing.assert_allclose(g_b, g_e, rtol=1e-7, atol=1e-7)
 
@@ -112,5 +113,6 @@ def test_block_kalman_on_hard_series(rng):
 
 
 def test_bad_cache_argument_is_rejected():
-    with pytest.raises(TypeError, match="cache must be True or False"):
-        BlockKalman(cache="yes")
+    for bad in ["yes", -1, True, 2.5]:
+        with pytest.raises(ValueError, match="whole number of slots"):
+            BlockKalman(cache=bad)

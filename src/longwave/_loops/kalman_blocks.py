@@ -15,8 +15,12 @@ lives in block ``term_block[j]`` with coefficients padded to ``(s, s)``::
               cos_coef (T, K, s, s), sin_coef (T, K, s, s))
     dtrans = (d_rate (p, T), d_freq (p, T), d_cos (p, T, K, s, s), d_sin (p, T, K, s, s))
 
-Transition cache: when a step ``dt`` equals the previous one exactly (regular
-cadences), ``A`` and every ``dA`` are reused instead of re-evaluated.
+Transition cache: ``A`` (and every ``dA``) of the last ``slots`` distinct
+steps are kept, keyed by the exact value of ``dt``, and reused when a step
+repeats (``slots = 0`` disables it). Several slots, not just the last step,
+because a regular cadence ``t0 + k * step`` rounds its differences to a few
+neighbouring doubles (with ``t0 = 2.46e6``, ``step = 0.05``: two values, only
+20 % of them equal to the one before), and gaps add multiples of the step.
 
 Conventions as in ``kalman.py``: ``resid`` (n,), ``noise`` (n,), ``H`` (d,),
 ``Pinf`` (d, d); the predicted covariance is ``A (P - Pinf) A^T + Pinf``.
@@ -156,28 +160,45 @@ def _update(m, P, H, resid_i, noise_i, Ph):
 
 
 @njit(cache=True)
-def filter_loglik(t, resid, noise, H, Pinf, trans, use_cache):
+def _lookup(cache_dt, dt, n_used):
+    """Slot holding ``dt`` exactly, or -1."""
+    for k in range(n_used):
+        if cache_dt[k] == dt:
+            return k
+    return -1
+
+
+@njit(cache=True)
+def filter_loglik(t, resid, noise, H, Pinf, trans, slots):
     """Log marginal likelihood by the Kalman filter with block-diagonal ``A``."""
     bstart, term_block, rate, freq, cos_coef, sin_coef = trans
     n = t.size
     d = H.size
     n_blocks = bstart.size - 1
     s = cos_coef.shape[2]
-    blocks = np.zeros((n_blocks, s, s))
+    n_slots = max(slots, 1)
+    cache_A = np.zeros((n_slots, n_blocks, s, s))
+    cache_dt = np.full(n_slots, -1.0)
+    n_used = 0
+    next_slot = 0
     m = np.zeros(d)
     mp = np.zeros(d)
     P = Pinf.copy()
     work = np.zeros((d, d))
     Ph = np.zeros(d)
     total = 0.0
-    last_dt = -1.0
     for i in range(n):
         if i > 0:
             dt = t[i] - t[i - 1]
             if dt > 0.0:
-                if not (use_cache and dt == last_dt):
-                    block_transition(dt, trans, blocks)
-                    last_dt = dt
+                k = _lookup(cache_dt, dt, n_used) if slots > 0 else -1
+                if k < 0:
+                    k = next_slot
+                    block_transition(dt, trans, cache_A[k])
+                    cache_dt[k] = dt
+                    next_slot = (next_slot + 1) % n_slots
+                    n_used = min(n_used + 1, n_slots)
+                blocks = cache_A[k]
                 _apply_vec(blocks, bstart, m, mp)
                 m[:] = mp
                 _sandwich(blocks, bstart, P, Pinf, work, P)
@@ -194,7 +215,7 @@ def filter_loglik(t, resid, noise, H, Pinf, trans, use_cache):
 
 
 @njit(cache=True)
-def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens, use_cache):
+def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens, slots):
     """Log marginal likelihood and gradient by forward sensitivities, block ``A``.
 
     ``sens = (dtrans, dPinf, dnoise, dmean, dynamic)`` as in
@@ -210,8 +231,12 @@ def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens, use_cache):
     p = dnoise.size
     n_blocks = bstart.size - 1
     s = cos_coef.shape[2]
-    blocks = np.zeros((n_blocks, s, s))
-    dblocks = np.zeros((p, n_blocks, s, s))
+    n_slots = max(slots, 1)
+    cache_A = np.zeros((n_slots, n_blocks, s, s))
+    cache_dA = np.zeros((n_slots, p, n_blocks, s, s))
+    cache_dt = np.full(n_slots, -1.0)
+    n_used = 0
+    next_slot = 0
     m = np.zeros(d)
     P = Pinf.copy()
     dm = np.zeros((p, d))
@@ -226,17 +251,22 @@ def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens, use_cache):
     dPh = np.zeros(d)
     total = 0.0
     grad = np.zeros(p)
-    last_dt = -1.0
     for i in range(n):
         if i > 0:
             dt = t[i] - t[i - 1]
             if dt > 0.0:
-                if not (use_cache and dt == last_dt):
-                    block_transition(dt, trans, blocks)
+                k = _lookup(cache_dt, dt, n_used) if slots > 0 else -1
+                if k < 0:
+                    k = next_slot
+                    block_transition(dt, trans, cache_A[k])
                     for q in range(p):
                         if dynamic[q]:
-                            block_transition_grad(dt, trans, dtrans, q, dblocks[q])
-                    last_dt = dt
+                            block_transition_grad(dt, trans, dtrans, q, cache_dA[k, q])
+                    cache_dt[k] = dt
+                    next_slot = (next_slot + 1) % n_slots
+                    n_used = min(n_used + 1, n_slots)
+                blocks = cache_A[k]
+                dblocks = cache_dA[k]
                 for a in range(d):
                     for e in range(d):
                         M[a, e] = P[a, e] - Pinf[a, e]

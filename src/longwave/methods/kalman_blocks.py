@@ -7,8 +7,8 @@ transition coefficient and derivative), reorders the state so the blocks are
 contiguous, and runs ``_loops/kalman_blocks.py``, whose products with ``A``
 cost ``O(d^2 s)`` for blocks of size ``s`` instead of ``O(d^3)``. On a
 regular cadence it also reuses ``A(dt)`` and its derivatives when ``dt``
-repeats exactly. Posteriors use the dense loops (one pass, not the
-bottleneck of fitting).
+repeats exactly (a cache of the last few distinct steps). Posteriors use the
+dense loops (one pass, not the bottleneck of fitting).
 """
 
 from __future__ import annotations
@@ -118,9 +118,10 @@ class BlockKalman(Method):
 
     Parameters
     ----------
-    cache : bool, default True
-        Reuse ``A(dt)`` and its derivatives when a step repeats the previous
-        one exactly (regular cadences).
+    cache : int, default 8
+        Slots of the transition cache: ``A(dt)`` and its derivatives for the
+        last ``cache`` distinct steps are reused when a step repeats one of
+        them exactly (regular cadences); 0 turns the cache off.
 
     Examples
     --------
@@ -134,10 +135,13 @@ class BlockKalman(Method):
 
     name = "kalman_blocks"
 
-    def __init__(self, cache: bool = True):
-        if not isinstance(cache, bool):
-            raise TypeError(f"cache must be True or False, got {cache!r}")
-        self.cache = cache
+    def __init__(self, cache: int = 8):
+        if isinstance(cache, bool) or not isinstance(cache, (int, np.integer)) or cache < 0:
+            raise ValueError(
+                f"cache must be a whole number of slots >= 0 (0 turns it off), got {cache!r}; "
+                "for example BlockKalman(cache=8)"
+            )
+        self.cache = int(cache)
 
     def describe(self) -> dict:
         return {"name": self.name, "cache": self.cache}
