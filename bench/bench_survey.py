@@ -20,6 +20,9 @@ one invocation, side by side, because the machine is shared and noisy:
   RSS for N/4 and N objects.
 
 Targets on a 2-core machine: >= 1.7x from two workers, >= 200 objects/s.
+CPU milliseconds per object (client and workers) are printed too: on a
+shared machine they are steadier than wall time, and the client's share is
+what a core lost to coordination costs.
 """
 
 from __future__ import annotations
@@ -87,9 +90,13 @@ def _child(args) -> None:
                                  scheduler=cluster.scheduler_address, overwrite=True,
                                  progress=False, quiet=True)
             wall = time.perf_counter() - t0
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    me = resource.getrusage(resource.RUSAGE_SELF)
+    # Worker processes are this process's children, joined when the cluster closed.
+    kids = resource.getrusage(resource.RUSAGE_CHILDREN)
     print(json.dumps({"processed": summary.processed, "ok": summary.by_status["ok"],
-                      "wall": wall, "startup": startup, "peak_mb": peak_mb,
+                      "wall": wall, "startup": startup, "peak_mb": me.ru_maxrss / 1024.0,
+                      "client_cpu": me.ru_utime + me.ru_stime,
+                      "worker_cpu": kids.ru_utime + kids.ru_stime,
                       "median_fit": summary.median_fit_seconds}))
 
 
@@ -130,10 +137,13 @@ def main(argv=None) -> int:
     print(f"survey of {n} objects x {args.points} points, matern32 + excess noise, "
           f"load average at the end {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
     print(f"{'configuration':<18}{'objects':>9}{'wall s':>9}{'obj/s':>9}{'start s':>9}"
-          f"{'fit ms':>9}{'peak MB':>9}")
+          f"{'fit ms':>9}{'client':>9}{'workers':>9}{'peak MB':>9}")
+    print(f"{'':<18}{'':>9}{'':>9}{'':>9}{'':>9}{'median':>9}{'cpu ms/obj':>18}")
     for name, r in runs.items():
+        per = 1e3 / max(r["processed"], 1)
         print(f"{name:<18}{r['processed']:>9}{r['wall']:>9.1f}{r['processed'] / r['wall']:>9.1f}"
-              f"{r['startup']:>9.1f}{1e3 * r['median_fit']:>9.2f}{r['peak_mb']:>9.0f}")
+              f"{r['startup']:>9.1f}{1e3 * r['median_fit']:>9.2f}{r['client_cpu'] * per:>9.2f}"
+              f"{r['worker_cpu'] * per:>9.2f}{r['peak_mb']:>9.0f}")
     serial, two, small = runs["serial"], runs["2 workers"], runs["2 workers, N/4"]
     speedup = (two["processed"] / two["wall"]) / (serial["processed"] / serial["wall"])
     print(f"speed-up of two workers over serial: {speedup:.2f}x (target >= 1.7x)")
