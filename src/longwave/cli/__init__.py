@@ -12,7 +12,7 @@ import importlib
 import sys
 
 # Modules providing subcommands, in the order `longwave --help` lists them.
-COMMAND_MODULES = ["demo", "fit", "survey", "bench"]
+COMMAND_MODULES = ["demo", "simulate", "fit", "survey", "bench", "inspect"]
 
 
 def build_parser() -> argparse.ArgumentParser:
