@@ -104,7 +104,7 @@ def fits_figure(panels, path, *, note: str = "") -> Path:
         ax.set_xlabel(f"time − {t0:.0f} [d]", fontsize=8)
     axes[0].legend(loc="upper right", fontsize=7, ncols=3)
     if note:
-        fig.suptitle(note, fontsize=8, y=0.0, va="bottom")
+        fig.suptitle(note, fontsize=8)
     return _save(fig, path)
 
 
