@@ -264,8 +264,8 @@ class VFE(SparseMethod):
                   "trace_term": trace_w, "n_inducing": float(setup.z.size)}
         if not gradient:
             return Evaluation(lower, None, extras), None
-        core, g_uu = obj.vfe_adjoints(solved, s, setup.linv)
-        ctx = self._context(model, setup, adj_mat=core, adj_vec=solved.g_hat,
+        g_phi, g_uu, g = obj.vfe_adjoints(solved, s, setup.linv)
+        ctx = self._context(model, setup, adj_mat=g_phi, adj_vec=g,
                             n_grad=model.n_kernel_params, with_z=with_z)
         acc2 = self._run("grad", ctx, source)
         grad, gz = self._assemble(model, setup, acc2, g_uu, -0.5 * acc.sum_w, with_z)

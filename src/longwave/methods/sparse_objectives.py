@@ -109,7 +109,7 @@ def vfe_bounds(s, cw, sum_rr, sum_log, sum_w, n, kd):
 
 
 def vfe_adjoints(solved: Solved, s, linv):
-    """Derivatives of the VFE bound w.r.t. ``Phi``, ``b`` and ``Kuu``, whitened.
+    """Derivatives of the VFE bound w.r.t. ``Phi``, ``b`` and ``Kuu``.
 
     With ``Sigma = Kuu + Phi``, ``g = Sigma^-1 b`` (Titsias 2009, eq. 9
     differentiated; whitened with ``Kuu^-1 = Linv^T Linv``)::
@@ -121,13 +121,15 @@ def vfe_adjoints(solved: Solved, s, linv):
 
     Returns
     -------
-    core : ndarray of shape (m, m)
-        ``C``, which the gradient pass applies to whitened blocks.
-    g_uu : ndarray of shape (m, m)
-        ``dF/dKuu``.
+    g_phi, g_uu : ndarray of shape (m, m)
+        ``dF/dPhi`` and ``dF/dKuu``.
+    g : ndarray of shape (m,)
+        ``dF/db``.
     """
     core = np.eye(s.shape[0]) - solved.b_inv() - np.outer(solved.g_hat, solved.g_hat)
-    return _sym(core), _sym(0.5 * linv.T @ (core - s) @ linv)
+    g_phi = 0.5 * linv.T @ core @ linv
+    g_uu = 0.5 * linv.T @ (core - s) @ linv
+    return _sym(g_phi), _sym(g_uu), linv.T @ solved.g_hat
 
 
 def fitc_kuu_adjoint(solved: Solved, delta_aa, linv):
