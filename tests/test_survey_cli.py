@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from distributed import Client
 from survey_support import (
     free_port,
     longwave_cmd,
@@ -74,6 +75,8 @@ def external_cluster(tmp_path_factory):
         procs.append(start([_dask_exe(), "worker", address, "--host", "127.0.0.1",
                             "--nworkers", "2", "--nthreads", "1", "--no-dashboard"],
                            stdout=open(logs / "worker.log", "w"), stderr=subprocess.STDOUT))
+        with Client(address, timeout=60) as client:
+            client.wait_for_workers(2, timeout=120)
         yield address
     finally:
         for proc in reversed(procs):
