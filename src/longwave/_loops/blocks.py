@@ -100,11 +100,20 @@ def cross_block(z, t, form, colscale, out):
     out : (m, c) C-ordered buffer (output)
     """
     codes, params, term_start, _ = form
+    # A single primitive (the common case) skips the term and factor loops,
+    # which halves the time per element.
+    single = term_start.size == 2 and term_start[1] == 1
+    code, par = codes[0], params[0]
     for a in prange(z.size):
         buf = np.empty(2 + MAX_PARAMS)
         za = z[a]
-        for i in range(t.size):
-            out[a, i] = colscale[i] * _value(abs(za - t[i]), codes, params, term_start, buf)
+        if single:
+            for i in range(t.size):
+                primitive(code, abs(za - t[i]), par, buf, False)
+                out[a, i] = colscale[i] * buf[0]
+        else:
+            for i in range(t.size):
+                out[a, i] = colscale[i] * _value(abs(za - t[i]), codes, params, term_start, buf)
 
 
 @njit(cache=True)
@@ -133,6 +142,14 @@ def _contract_point(weight, diff, codes, params, term_start, slots, fac, grad, w
     # |z - t| has a kink at zero; its subgradient 0 is used there (the
     # derivative in the lag vanishes at 0 for every kernel smoother than Matérn-1/2).
     with_z = with_z and diff != 0.0
+    if codes.size == 1:  # a single primitive: no products of other factors
+        primitive(codes[0], tau, params[0], fac[0], True)
+        for p in range(MAX_PARAMS):
+            s = slots[0, p]
+            if s >= 0:
+                grad[s] += weight * fac[0, 2 + p]
+        dz = weight * fac[0, 1] if with_z else 0.0
+        return -dz if diff < 0.0 else dz
     for j in range(term_start.size - 1):
         lo, hi = term_start[j], term_start[j + 1]
         for f in range(lo, hi):
