@@ -142,3 +142,16 @@ def test_more_inducing_points_than_data_is_a_clear_error():
     with pytest.raises(ValueError, match=r"'vfe:m=64': 64 inducing points for \d+ compared"):
         run_benchmark(series, Model(Matern32(amplitude=1.0, scale=5.0), excess_noise=0.1),
                       parse_methods("kalman vfe:m=64"))
+
+
+def test_state_space_orders_compare_as_settings():
+    # Source: the SquaredExp state-space error bound falls with the order, and so
+    # does the likelihood error against the dense reference.
+    series = _simulate(SquaredExp(amplitude=1.0, scale=30.0), 400, seed=6)
+    start = Model(SquaredExp(amplitude=1.0, scale=30.0), excess_noise=0.05)
+    result = run_benchmark(series, start, parse_methods("kalman:kernel.order=2,4,8"), fit=False,
+                           scaling_steps=0)
+    assert result.reference.label.startswith("exact")
+    gaps = [abs(r.lml_diff_per_point) for r in result.methods]
+    assert gaps[0] > gaps[1] > gaps[2]
+    assert result.methods[0].description["kernel_options"] == {"order": 2}

@@ -70,3 +70,28 @@ def test_a_setting_listed_twice_is_rejected():
 def test_no_settings_is_an_error():
     with pytest.raises(ValueError, match="no method settings given"):
         parse_methods([])
+
+
+def test_kernel_options_are_kept_apart_from_method_options():
+    cands = parse_methods("kalman:kernel.order=4,8")
+    assert [c.label for c in cands] == ["kalman:kernel.order=4", "kalman:kernel.order=8"]
+    assert cands[0].options == {} and cands[0].kernel_options == {"order": 4}
+
+
+def test_kernel_options_rebuild_only_the_kernels_that_take_them():
+    # Source: the SquaredExp docstring (its error bound falls with the order).
+    from longwave import Model
+    from longwave.benchmark.kernel_options import apply_kernel_options
+    from longwave.kernels import Matern32, SquaredExp
+
+    model = Model(Matern32(amplitude=1.0, scale=3.0) + SquaredExp(amplitude=0.5, scale=9.0),
+                  excess_noise=0.1)
+    low = apply_kernel_options(model, {"order": 3})
+    high = apply_kernel_options(model, {"order": 10})
+    assert low.names == model.names and low.values() == model.values()
+    assert [k.order for k in low.kernel.leaves()] == [2, 3]  # Matérn-3/2 untouched
+    assert high.kernel.covariance_error_bound() < low.kernel.covariance_error_bound()
+    with pytest.raises(ValueError, match="no kernel of .* takes the option 'order'"):
+        apply_kernel_options(Model(Matern32(amplitude=1.0, scale=3.0)), {"order": 4}, "x")
+    with pytest.raises(ValueError, match="order must be a whole number"):
+        apply_kernel_options(model, {"order": 99}, "kalman:kernel.order=99")

@@ -10,7 +10,7 @@ from .reference import Holdout, choose_reference, largest_stretch
 from .runner import BenchmarkResult, run_benchmark
 from .scaling import growth_exponent, run_scaling, size_grid
 from .settings import Candidate, parse_methods
-from .timing import Cost, time_call
+from .timing import Cost, time_best, time_call
 
 __all__ = [
     "BenchmarkResult",
@@ -28,5 +28,6 @@ __all__ = [
     "run_benchmark",
     "run_scaling",
     "size_grid",
+    "time_best",
     "time_call",
 ]

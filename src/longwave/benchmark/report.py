@@ -67,7 +67,8 @@ def method_table(methods, recommendation) -> str:
         if r.status != "ok":
             lines.append(f"{r.label:<24} {r.status}: {r.message[:70]}")
             continue
-        peak = max(r.fit_peak_mb, r.predict_peak_mb, r.evaluate_peak_mb)
+        peaks = [p for p in (r.fit_peak_mb, r.predict_peak_mb, r.evaluate_peak_mb) if p == p]
+        peak = max(peaks) if peaks else float("nan")
         lines.append(
             f"{r.label:<24} {_fmt(abs(r.lml_diff_per_point)):>9} {_fmt(r.mean_error_sigma):>8} "
             f"{_fmt(r.variance_ratio, '.4f'):>9} {_fmt(r.mean_kl):>9} "

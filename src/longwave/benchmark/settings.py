@@ -9,20 +9,26 @@ gives the four combinations. Options are the keyword arguments of the method's
 constructor, so any method, present or future, is configured the same way;
 ``m`` is shorthand for ``inducing``. Names map to objects in
 :func:`longwave.methods.resolve` only.
+
+Options prefixed ``kernel.`` configure the model's kernels instead (see
+:mod:`.kernel_options`): ``kalman:kernel.order=4,8,12`` compares state-space
+orders of kernels whose form is an approximation.
 """
 
 from __future__ import annotations
 
 import itertools
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from ..methods import Method, resolve
+from .kernel_options import PREFIX as KERNEL_PREFIX
 
 #: Short option names accepted in setting strings, and the keyword they stand for.
 ALIASES = {"m": "inducing"}
 
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_KEY = re.compile(r"^(kernel\.)?[A-Za-z][A-Za-z0-9_]*$")
 
 _EXAMPLE = "for example 'exact', 'kalman' or 'vfe:m=64,128,256:placement=grid'"
 
@@ -41,12 +47,15 @@ class Candidate:
         Constructor keyword arguments, after aliases were expanded.
     method : Method
         The configured method object.
+    kernel_options : dict
+        Options for the model's kernels (``kernel.`` prefix removed).
     """
 
     label: str
     name: str
     options: dict
     method: Method
+    kernel_options: dict = field(default_factory=dict)
 
 
 def _convert(text: str):
@@ -73,7 +82,7 @@ def _parse_one(spec: str) -> tuple[str, list[tuple[str, str, list]]]:
     options, seen = [], set()
     for chunk in chunks:
         key, sep, values = chunk.partition("=")
-        if not sep or not _NAME.match(key) or not values:
+        if not sep or not _KEY.match(key) or not values:
             raise ValueError(
                 f"malformed method setting {spec!r}: each option must read KEY=VALUE[,VALUE...], "
                 f"got {chunk!r}; {_EXAMPLE}"
@@ -128,7 +137,10 @@ def parse_methods(specs) -> list[Candidate]:
         name, options = _parse_one(spec)
         grids = [values for _, _, values in options]
         for combo in itertools.product(*grids):
-            kwargs = {kw: v for (_, kw, _), v in zip(options, combo)}
+            chosen = {kw: v for (_, kw, _), v in zip(options, combo)}
+            kwargs = {k: v for k, v in chosen.items() if not k.startswith(KERNEL_PREFIX)}
+            kernel_opts = {k[len(KERNEL_PREFIX):]: v for k, v in chosen.items()
+                           if k.startswith(KERNEL_PREFIX)}
             label = ":".join([name] + [f"{k}={v}" for (k, _, _), v in zip(options, combo)])
             try:
                 method = resolve(name, **kwargs)
@@ -137,7 +149,8 @@ def parse_methods(specs) -> list[Candidate]:
             if label in labels:
                 raise ValueError(f"method setting {label!r} is listed twice; list each once")
             labels.add(label)
-            out.append(Candidate(label=label, name=name, options=kwargs, method=method))
+            out.append(Candidate(label=label, name=name, options=kwargs, method=method,
+                                 kernel_options=kernel_opts))
     if not out:
         raise ValueError(f"no method settings given; {_EXAMPLE}")
     return out
