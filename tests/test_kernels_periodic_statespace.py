@@ -243,3 +243,19 @@ def test_kalman_matches_exact_on_hard_series(rng):
     v_e, g_e = log_marginal_likelihood(model, series, method=Exact(), gradient=True)
     assert v_k == pytest.approx(v_e, rel=1e-9)
     np.testing.assert_allclose(g_k, g_e, rtol=1e-6, atol=1e-6)
+
+
+@pytest.mark.parametrize("case", sorted(DEFAULT_ORDER))
+def test_kalman_gradient_matches_finite_differences_at_default_order(case, rng):
+    # at the default orders Kalman differs from Exact by the truncation, so its gradient
+    # is checked against central differences of its own log-likelihood (common practice);
+    # for Periodic this includes the tapered last harmonic of the automatic order
+    kernel = DEFAULT_ORDER[case]()
+    series = prior_draw_series(kernel, rng, n=80)
+    model = Model(kernel, mean=0.1, excess_noise=0.05)
+    _, grad = log_marginal_likelihood(model, series, method=Kalman(), gradient=True)
+    fd = central_difference(
+        lambda x: log_marginal_likelihood(model.with_coordinates(x), series, method=Kalman()),
+        model.coordinates(), 1e-4,  # the filter's round-off (~1e-10) swamps smaller steps
+    )
+    np.testing.assert_allclose(grad, fd, rtol=1e-5, atol=1e-5)
