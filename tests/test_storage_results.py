@@ -135,3 +135,13 @@ def test_flush_makes_rows_readable_before_close(tmp_path, rng):
         st.flush()
         table = ResultStore.read(path)
         assert table.id.tolist() == ["obj-0"] and not table.merged
+
+
+def test_resume_accepts_the_same_config_with_nan(tmp_path):
+    # JSON keeps NaN; equal configs must compare equal even though NaN != NaN.
+    path = tmp_path / "r.h5"
+    config = {"clip": float("nan"), "restarts": 2}
+    with ResultStore(path, PARAMS, config) as st:
+        st.append(ObjectResult(id="a", status="ok"))
+    with ResultStore(path, PARAMS, dict(config), resume=True) as st:
+        assert st.done_ids() == {"a"}

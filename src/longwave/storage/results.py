@@ -333,7 +333,8 @@ class ResultStore:
             if param_names and param_names != stored:
                 raise ValueError(f"{self.path}: param_names must match the stored ones to "
                                  f"resume, stored {stored}, got {param_names}")
-            if config is not None and json.loads(config_json) != attrs["config"]:
+            # Compared as canonical JSON text, so that NaN equals NaN.
+            if config is not None and _h5.json_attr(attrs["config"], "config") != config_json:
                 diff = sorted(k for k in set(attrs["config"]) | set(config)
                               if attrs["config"].get(k) != json.loads(config_json).get(k))
                 raise ValueError(f"{self.path}: config must match the stored one to resume; "
