@@ -87,3 +87,25 @@ def test_placement_errors():
         place(ChunkedSeries(np.arange(5.0), np.zeros(5)), 3, "grid")
     with pytest.raises(ValueError, match="kernel"):
         place(ChunkedSeries(np.arange(5.0), np.zeros(5)), 3, "greedy")
+
+
+@pytest.mark.parametrize("hyper", [False, True])
+def test_optimising_inducing_times_raises_the_bound(hyper, rng):
+    # source: Titsias 2009 sec. 3 (the bound is maximised over inducing inputs); the result
+    # must beat its start and remain a lower bound on Exact's value
+    from longwave import Model, Series
+    from longwave.methods import VFE, Exact
+    from longwave.methods.sparse_optimize import optimize_inducing
+
+    t = _clustered_times(rng, 600)
+    series = Series(t, np.sin(t / 2) + 0.1 * rng.standard_normal(t.size), err=0.1)
+    model = Model(Matern32(amplitude=1.0, scale=2.0))
+    result = optimize_inducing(model, series, VFE(inducing=15, placement="uniform"),
+                               hyperparameters=hyper, max_iter=60)
+    assert result.value > result.initial_value + 1.0
+    assert result.method.inducing.size == 15 and np.all(np.diff(result.method.inducing) >= 0)
+    again = result.method.evaluate(result.model, series).value
+    assert again == pytest.approx(result.value, rel=1e-10)
+    assert again <= Exact().evaluate(result.model, series).value
+    if not hyper:
+        assert result.model is model
