@@ -7,6 +7,7 @@ from .exact import Exact
 from .kalman import Kalman
 from .sparse import FITC, VFE
 from .sparse_data import ChunkedSeries
+from .sparse_optimize import optimize_inducing
 
 # The one place where a method's name maps to its class (rule: strings map to
 # objects in one place only). Sparse methods register themselves here too.
@@ -56,5 +57,5 @@ def resolve(method, **options) -> Method:
 
 __all__ = [
     "ChunkedSeries", "Evaluation", "Exact", "FITC", "Kalman", "Method", "Posterior",
-    "Prediction", "VFE", "resolve",
+    "Prediction", "VFE", "optimize_inducing", "resolve",
 ]
