@@ -74,3 +74,24 @@ def test_scaling_mode_fits_exponents_and_stops_exact_at_its_limit(tmp_path):
     assert report["curves"][1]["stopped"].startswith("refused")
     _assert_png(files["time_plot"])
     _assert_png(files["memory_plot"])
+
+
+def test_optional_hdf5_report_holds_the_same_figures(small_run, tmp_path):
+    import h5py
+
+    from longwave.storage.benchmark_report import read_report_hdf5
+
+    files = write_report(small_run, tmp_path, hdf5=True)
+    with open(files["json"], encoding="utf-8") as fh:
+        from_json = json.load(fh)
+    from_h5 = read_report_hdf5(files["hdf5"])
+    assert from_h5["recommendation"] == from_json["recommendation"]
+    assert from_h5["methods"] == from_json["methods"]
+    with h5py.File(files["hdf5"], "r") as f:
+        assert f.attrs["longwave_format"] == "benchmark_report"
+        labels = [s.decode() for s in f["methods/label"][:]]
+        assert labels == [m["label"] for m in from_json["methods"]]
+        kl = f["methods/mean_kl"][:]
+        assert np.allclose(kl, [m["mean_kl"] for m in from_json["methods"]])
+        assert np.all(np.isnan(f["methods/fit_seconds"][:]))  # null in JSON, NaN here
+        assert "interpolation.nlpd" in f["methods"]

@@ -56,7 +56,8 @@ def benchmark_file(path, out_dir, *, model: str = DEFAULT_MODEL, methods=None,
                    seed: int = 0, objects: int | None = None,
                    reference_max_n: int = DEFAULT_REFERENCE_MAX_N, fit: bool = True,
                    restarts: int = 0, gaps: int = 3, gap_fraction: float = 0.02,
-                   forecast_fraction: float = 0.05, progress=None) -> Outcome:
+                   forecast_fraction: float = 0.05, hdf5: bool = False,
+                   progress=None) -> Outcome:
     """Benchmark the series (or sampled survey objects) in ``path``; write ``out_dir``.
 
     Parameters
@@ -78,6 +79,8 @@ def benchmark_file(path, out_dir, *, model: str = DEFAULT_MODEL, methods=None,
     reference_max_n : int, default 5000
     fit, restarts : see :func:`.runner.run_benchmark`
     gaps, gap_fraction, forecast_fraction : see :class:`.reference.Holdout`
+    hdf5 : bool, default False
+        Also write ``report.h5`` through the storage layer.
     progress : callable, optional
 
     Returns
@@ -97,10 +100,10 @@ def benchmark_file(path, out_dir, *, model: str = DEFAULT_MODEL, methods=None,
         result = run_benchmark(series, model_from_spec(model, series), candidates, **options)
         result.config["input"], result.config["model_spec"] = str(path), model
         title = f"{ident}: {series.n} points"
-        files = write_report(result, out_dir, title=title)
+        files = write_report(result, out_dir, title=title, hdf5=hdf5)
         return Outcome(summary_text(result, title), files, result)
     batch = run_objects(items, lambda s: model_from_spec(model, s), candidates, **options)
-    files = write_batch_report(batch, out_dir)
+    files = write_batch_report(batch, out_dir, hdf5=hdf5)
     return Outcome(files["summary"].read_text(encoding="utf-8").rstrip(), files, batch)
 
 

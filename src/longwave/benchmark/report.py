@@ -160,7 +160,14 @@ def _payload(result, title: str = "") -> dict:
     return payload
 
 
-def write_report(result, out_dir, *, title: str = "") -> dict:
+def _hdf5(path, payload: dict, rows: str) -> Path:
+    from ..storage.benchmark_report import write_report_hdf5
+
+    write_report_hdf5(path, plain(payload), rows=rows)
+    return Path(path)
+
+
+def write_report(result, out_dir, *, title: str = "", hdf5: bool = False) -> dict:
     """Write the JSON report, the three PNG plots and the text summary of one run.
 
     Parameters
@@ -170,11 +177,14 @@ def write_report(result, out_dir, *, title: str = "") -> dict:
         Created if missing.
     title : str, default ""
         First line of the text summary.
+    hdf5 : bool, default False
+        Also write ``report.h5`` (layout in :mod:`longwave.storage.benchmark_report`).
 
     Returns
     -------
     dict of str to Path
-        ``json``, ``summary``, ``accuracy_plot``, ``overlay_plot``, ``scaling_plot``.
+        ``json``, ``summary``, ``accuracy_plot``, ``overlay_plot``, ``scaling_plot``
+        (and ``hdf5``).
     """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -182,6 +192,8 @@ def write_report(result, out_dir, *, title: str = "") -> dict:
     files = {"json": write_json(out / REPORT_NAME, payload), "summary": out / "summary.txt"}
     files["summary"].write_text(payload["summary"] + "\n", encoding="utf-8")
     files.update(_plots(result, out, ""))
+    if hdf5:
+        files["hdf5"] = _hdf5(out / "report.h5", payload, "methods")
     return files
 
 
@@ -201,7 +213,7 @@ def _safe(ident: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]", "_", ident) or "object"
 
 
-def write_batch_report(batch, out_dir) -> dict:
+def write_batch_report(batch, out_dir, *, hdf5: bool = False) -> dict:
     """One ``report.json`` holding every object's figures and the combined verdict.
 
     Plots and text summaries are written per object, their names prefixed
@@ -223,6 +235,8 @@ def write_batch_report(batch, out_dir) -> dict:
     files["json"] = write_json(out / REPORT_NAME, payload)
     files["summary"] = out / "summary.txt"
     files["summary"].write_text(text + "\n", encoding="utf-8")
+    if hdf5:
+        files["hdf5"] = _hdf5(out / "report.h5", payload, "combined")
     return files
 
 

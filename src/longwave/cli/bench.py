@@ -54,6 +54,7 @@ def register(sub) -> None:
                    help="score at the reference's hyperparameters only (faster)")
     p.add_argument("--restarts", type=int, default=0, help="extra optimiser starts per fit")
     p.add_argument("--gaps", type=int, default=3, help="interpolation gaps held out")
+    p.add_argument("--hdf5", action="store_true", help="also write report.h5")
     p.add_argument("--scaling", action="store_true", help="scaling mode (no INPUT)")
     p.add_argument("--min-n", type=_size, default=1000, help="scaling: smallest n")
     p.add_argument("--max-n", type=_size, default=10**7, help="scaling: largest n")
@@ -84,7 +85,7 @@ def run(args) -> int:
             tolerance=args.tolerance, tol_lml=args.tol_lml, tol_mean=args.tol_mean,
             tol_kl=args.tol_kl, seed=args.seed, objects=args.objects,
             reference_max_n=args.reference_max_n, fit=not args.no_fit,
-            restarts=args.restarts, gaps=args.gaps, progress=say,
+            restarts=args.restarts, gaps=args.gaps, hdf5=args.hdf5, progress=say,
         )
     print(outcome.text)
     print(f"\nreport: {outcome.files['json']}")
