@@ -67,7 +67,7 @@ def largest_stretch(t, max_n: int) -> tuple[int, int]:
 
     Examples
     --------
-    >>> largest_stretch([0.0, 1.0, 2.0, 10.0, 11.0], 3)
+    >>> largest_stretch([0.0, 1.0, 2.0, 10.0, 12.0], 3)
     (2, 5)
     """
     t = np.asarray(t, dtype=float)
