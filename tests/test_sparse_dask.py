@@ -34,7 +34,7 @@ class H5Reader:
 @pytest.fixture(scope="module")
 def client():
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                       host="127.0.0.1", dashboard_address=None)
+                                       host="127.0.0.1", dashboard_address="127.0.0.1:0")
     with distributed.Client(cluster) as c:
         yield c
     cluster.close()

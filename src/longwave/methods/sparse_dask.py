@@ -55,8 +55,10 @@ def run_distributed(client, kind, ctx, source, chunk, task_size, threads: int = 
             "ChunkedSeries.from_reader(reader, n) with a reader that opens the file by "
             "name on the worker, or from np.load(path, mmap_mode='r') arrays"
         ) from exc
-    [ctx_f] = client.scatter([ctx], broadcast=True)
-    [src_f] = client.scatter([source], broadcast=True)
+    # hash=False: content-hashed keys would collide with the previous pass's
+    # identical source while the scheduler is still releasing it ("lost dependencies")
+    [ctx_f] = client.scatter([ctx], broadcast=True, hash=False)
+    [src_f] = client.scatter([source], broadcast=True, hash=False)
     futures = [
         client.submit(_task, kind, ctx_f, src_f, lo, hi, chunk, threads, pure=False)
         for lo, hi in source.ranges(task_size)
