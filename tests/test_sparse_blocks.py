@@ -104,3 +104,25 @@ def test_kernel_without_code_uses_the_numpy_fallback(rng):
     np.testing.assert_allclose(ev.block(z, t, np.ones(30)), kernel(z, t), rtol=1e-14)
     with pytest.raises(ValueError, match="loop_code"):
         ev.contract(z, t, np.ones((6, 30)), True, np.zeros(4), np.zeros(6))
+
+
+def test_triangular_products_equal_numpy(rng):
+    # numpy twins of sparse_stats.whiten / unwhiten (BLAS trmm in place)
+    from longwave.methods.sparse_stats import unwhiten, whiten
+
+    linv = np.asfortranarray(np.tril(rng.standard_normal((7, 7))))
+    k = rng.standard_normal((7, 30))
+    np.testing.assert_allclose(whiten(linv, k.copy()), linv @ k, rtol=1e-13, atol=1e-13)
+    np.testing.assert_allclose(unwhiten(linv, k.copy()), linv.T @ k, rtol=1e-13, atol=1e-13)
+
+
+def test_accumulators_add_field_by_field():
+    # the map-reduce relies on Accumulator.add being a plain sum (sparse_stats)
+    from longwave.methods.sparse_stats import new_accumulator
+
+    a, b = new_accumulator("fitc_value", 3), new_accumulator("fitc_value", 3)
+    a.mat += 1.0
+    b.mat += 2.0
+    a.n, b.n, b.sum_rr = 4, 5, 1.5
+    a.add(b)
+    assert a.n == 9 and a.sum_rr == 1.5 and np.all(a.mat == 3.0) and a.grad is None
