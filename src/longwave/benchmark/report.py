@@ -121,13 +121,17 @@ def summary_text(result, title: str = "") -> str:
 def scaling_text(result) -> str:
     """The terminal summary of a scaling run."""
     lines = [f"scaling on synthetic series of {result.model}, seed {result.seed}",
-             f"{'method':<24} {'largest n':>10} {'time exp':>9} {'mem exp':>8}  "
-             "seconds at each n"]
+             "exponents of n: one evaluation with gradient (time, traced memory beyond the "
+             "input), then posterior + prediction at the n times",
+             f"{'method':<24} {'largest n':>10} {'time exp':>9} {'mem exp':>8} "
+             f"{'pred time':>9} {'pred mem':>8}  evaluation seconds at each n"]
     for c in result.curves:
         largest = c.points[-1].n if c.points else 0
         times = " ".join(f"{p.n:.0e}:{p.evaluate_seconds:.3g}" for p in c.points)
         lines.append(f"{c.label:<24} {largest:>10d} {_fmt(c.time_exponent, '.2f'):>9} "
-                     f"{_fmt(c.memory_exponent, '.2f'):>8}  {times}")
+                     f"{_fmt(c.memory_exponent, '.2f'):>8} "
+                     f"{_fmt(c.predict_time_exponent, '.2f'):>9} "
+                     f"{_fmt(c.predict_memory_exponent, '.2f'):>8}  {times}")
         if c.stopped:
             lines.append(f"{'':<24} stopped: {c.stopped[:120]}")
     return "\n".join(lines)

@@ -209,7 +209,10 @@ class ScalingCurve:
     label : str
     points : list of ScalingPoint
     time_exponent, memory_exponent : float
-        Least-squares slope of log cost on log n (see :func:`.scaling.growth_exponent`).
+        Least-squares slope of log cost on log n of one evaluation (see
+        :func:`.scaling.growth_exponent`).
+    predict_time_exponent, predict_memory_exponent : float
+        The same for posterior plus prediction at the n data times.
     stopped : str
         Why larger sizes were not run (refused, over the time budget), or empty.
     """
@@ -218,6 +221,8 @@ class ScalingCurve:
     points: list = field(default_factory=list)
     time_exponent: float = NAN
     memory_exponent: float = NAN
+    predict_time_exponent: float = NAN
+    predict_memory_exponent: float = NAN
     stopped: str = ""
 
 

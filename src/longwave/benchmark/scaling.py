@@ -121,6 +121,10 @@ def finish_curve(curve: ScalingCurve) -> ScalingCurve:
         n, [p.evaluate_seconds for p in curve.points], TIME_FLOOR_SECONDS)
     curve.memory_exponent = growth_exponent(
         n, [p.evaluate_peak_mb for p in curve.points], MEMORY_FLOOR_MB)
+    curve.predict_time_exponent = growth_exponent(
+        n, [p.predict_seconds for p in curve.points], TIME_FLOOR_SECONDS)
+    curve.predict_memory_exponent = growth_exponent(
+        n, [p.predict_peak_mb for p in curve.points], MEMORY_FLOOR_MB)
     return curve
 
 
