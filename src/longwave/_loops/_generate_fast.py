@@ -607,15 +607,23 @@ def gen_smooth(code, tr):
     code(
         "@njit(cache=True, fastmath={'contract'})",
         f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
-        f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``."""',
+        f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``.',
+        "",
+        "    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``",
+        "    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the",
+        "    filtered one for a whole series, a checkpoint for a block of it). The",
+        "    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.",
+        '    """',
     )
     code.indent()
     code("n = t.size")
     load_pinf(code, d)
     tr.preamble(code)
+    for a in range(d):
+        code(f"sm{a} = ms[n - 1, {a}]")
+    for a, b in upper(d):
+        code(f"{sym('sp', a, b)} = Ps[n - 1, {a}, {b}]")
     code(
-        "ms[n - 1, :] = mf[n - 1]",
-        "Ps[n - 1, :, :] = Pf[n - 1]",
         "block = work.shape[1]",
         "dtr = work[ROW_DT]",
         "end = n - 1",
@@ -633,12 +641,9 @@ def gen_smooth(code, tr):
     code.indent()
     code(
         "k = begin + b",
-        "if dtr[b] == 0.0:",
-        "    # repeated time: one state, already conditioned on every copy",
-        "    ms[k, :] = ms[k + 1]",
-        "    Ps[k, :, :] = Ps[k + 1]",
-        "    continue",
+        "if dtr[b] > 0.0:",
     )
+    code.indent()
     tr.load(code, "a", "b")
     for a in range(d):
         code(f"fm{a} = mf[k, {a}]")
@@ -646,19 +651,29 @@ def gen_smooth(code, tr):
         code(f"{sym('f', a, b)} = Pf[k, {a}, {b}]")
 
     def mean_out(a, expr):
-        code(f"ms[k, {a}] = {expr}")
+        code(f"nm{a} = {expr}")
 
     def cov_out(a, b, expr):
-        code(f"Ps[k, {a}, {b}] = {expr}")
-        if a != b:
-            code(f"Ps[k, {b}, {a}] = Ps[k, {a}, {b}]")
+        code(f"{sym('np', a, b)} = {expr}")
 
     smooth_step(
         code, d, "fm", "f",
-        lambda a: f"ms[k + 1, {a}]",
-        lambda a, b: f"Ps[k + 1, {a}, {b}]",
+        lambda a: f"sm{a}",
+        lambda a, b: sym("sp", a, b),
         "a", mean_out, cov_out,
     )
+    for a in range(d):
+        code(f"sm{a} = nm{a}")
+    for a, b in upper(d):
+        code(f"{sym('sp', a, b)} = {sym('np', a, b)}")
+    code.dedent()
+    code("# (a repeated time keeps the state: one state, conditioned on every copy)")
+    for a in range(d):
+        code(f"ms[k, {a}] = sm{a}")
+    for a, b in upper(d):
+        code(f"Ps[k, {a}, {b}] = {sym('sp', a, b)}")
+        if a != b:
+            code(f"Ps[k, {b}, {a}] = {sym('sp', a, b)}")
     code.dedent()
     code("end = begin")
     code.dedent()

@@ -2242,14 +2242,20 @@ def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sp00 = Ps[n - 1, 0, 0]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2261,35 +2267,42 @@ def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            ee = work[ROW_E, b]
-            a00 = ee * (c000)
-            fm0 = mf[k, 0]
-            f00 = Pf[k, 0, 0]
-            qq00 = f00 - pf00
-            w00 = a00 * qq00
-            pp00 = w00 * a00
-            pp00 += pf00
-            cc00 = a00 * f00
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            z0 = cc00
-            gt00 = z0 * iv0
-            dd0 = ms[k + 1, 0] - (a00 * fm0)
-            ms[k, 0] = fm0 + gt00 * dd0
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            gd00 = gt00 * dp00
-            Ps[k, 0, 0] = f00 + gd00 * gt00
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                a00 = ee * (c000)
+                fm0 = mf[k, 0]
+                f00 = Pf[k, 0, 0]
+                qq00 = f00 - pf00
+                w00 = a00 * qq00
+                pp00 = w00 * a00
+                pp00 += pf00
+                cc00 = a00 * f00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = cc00
+                gt00 = z0 * iv0
+                dd0 = sm0 - (a00 * fm0)
+                nm0 = fm0 + gt00 * dd0
+                dp00 = sp00 - pp00
+                gd00 = gt00 * dp00
+                np00 = f00 + gd00 * gt00
+                sm0 = nm0
+                sp00 = np00
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            Ps[k, 0, 0] = sp00
         end = begin
 
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
@@ -2304,8 +2317,11 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c101 = coef[0, 1, 0, 1]
     c110 = coef[0, 1, 1, 0]
     c111 = coef[0, 1, 1, 1]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sm1 = ms[n - 1, 1]
+    sp00 = Ps[n - 1, 0, 0]
+    sp01 = Ps[n - 1, 0, 1]
+    sp11 = Ps[n - 1, 1, 1]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2317,73 +2333,86 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            ee = work[ROW_E, b]
-            hh = work[ROW_DT, b]
-            a00 = ee * (c000 + hh * c100)
-            a01 = ee * (c001 + hh * c101)
-            a10 = ee * (c010 + hh * c110)
-            a11 = ee * (c011 + hh * c111)
-            fm0 = mf[k, 0]
-            fm1 = mf[k, 1]
-            f00 = Pf[k, 0, 0]
-            f01 = Pf[k, 0, 1]
-            f11 = Pf[k, 1, 1]
-            qq00 = f00 - pf00
-            qq01 = f01 - pf01
-            qq11 = f11 - pf11
-            w00 = a00 * qq00 + a01 * qq01
-            w01 = a00 * qq01 + a01 * qq11
-            w10 = a10 * qq00 + a11 * qq01
-            w11 = a10 * qq01 + a11 * qq11
-            pp00 = w00 * a00 + w01 * a01
-            pp01 = w00 * a10 + w01 * a11
-            pp11 = w10 * a10 + w11 * a11
-            pp00 += pf00
-            pp01 += pf01
-            pp11 += pf11
-            cc00 = a00 * f00 + a01 * f01
-            cc01 = a00 * f01 + a01 * f11
-            cc10 = a10 * f00 + a11 * f01
-            cc11 = a10 * f01 + a11 * f11
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            l10 = (pp01) * iv0
-            dg1 = pp11 - l10 * l10 * dg0
-            iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-            z0 = cc00
-            z1 = cc10 - l10 * z0
-            gt10 = z1 * iv1
-            gt00 = z0 * iv0 - l10 * gt10
-            z0 = cc01
-            z1 = cc11 - l10 * z0
-            gt11 = z1 * iv1
-            gt01 = z0 * iv0 - l10 * gt11
-            dd0 = ms[k + 1, 0] - (a00 * fm0 + a01 * fm1)
-            dd1 = ms[k + 1, 1] - (a10 * fm0 + a11 * fm1)
-            ms[k, 0] = fm0 + gt00 * dd0 + gt10 * dd1
-            ms[k, 1] = fm1 + gt01 * dd0 + gt11 * dd1
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            dp01 = Ps[k + 1, 0, 1] - pp01
-            dp11 = Ps[k + 1, 1, 1] - pp11
-            gd00 = gt00 * dp00 + gt10 * dp01
-            gd01 = gt00 * dp01 + gt10 * dp11
-            gd10 = gt01 * dp00 + gt11 * dp01
-            gd11 = gt01 * dp01 + gt11 * dp11
-            Ps[k, 0, 0] = f00 + gd00 * gt00 + gd01 * gt10
-            Ps[k, 0, 1] = f01 + gd00 * gt01 + gd01 * gt11
-            Ps[k, 1, 0] = Ps[k, 0, 1]
-            Ps[k, 1, 1] = f11 + gd10 * gt01 + gd11 * gt11
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f11 = Pf[k, 1, 1]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq11 = f11 - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                pp00 = w00 * a00 + w01 * a01
+                pp01 = w00 * a10 + w01 * a11
+                pp11 = w10 * a10 + w11 * a11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                cc00 = a00 * f00 + a01 * f01
+                cc01 = a00 * f01 + a01 * f11
+                cc10 = a10 * f00 + a11 * f01
+                cc11 = a10 * f01 + a11 * f11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                gt10 = z1 * iv1
+                gt00 = z0 * iv0 - l10 * gt10
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                gt11 = z1 * iv1
+                gt01 = z0 * iv0 - l10 * gt11
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp11 = sp11 - pp11
+                gd00 = gt00 * dp00 + gt10 * dp01
+                gd01 = gt00 * dp01 + gt10 * dp11
+                gd10 = gt01 * dp00 + gt11 * dp01
+                gd11 = gt01 * dp01 + gt11 * dp11
+                np00 = f00 + gd00 * gt00 + gd01 * gt10
+                np01 = f01 + gd00 * gt01 + gd01 * gt11
+                np11 = f11 + gd10 * gt01 + gd11 * gt11
+                sm0 = nm0
+                sm1 = nm1
+                sp00 = np00
+                sp01 = np01
+                sp11 = np11
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            ms[k, 1] = sm1
+            Ps[k, 0, 0] = sp00
+            Ps[k, 0, 1] = sp01
+            Ps[k, 1, 0] = sp01
+            Ps[k, 1, 1] = sp11
         end = begin
 
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
@@ -2420,8 +2449,15 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c220 = coef[0, 2, 2, 0]
     c221 = coef[0, 2, 2, 1]
     c222 = coef[0, 2, 2, 2]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sm1 = ms[n - 1, 1]
+    sm2 = ms[n - 1, 2]
+    sp00 = Ps[n - 1, 0, 0]
+    sp01 = Ps[n - 1, 0, 1]
+    sp02 = Ps[n - 1, 0, 2]
+    sp11 = Ps[n - 1, 1, 1]
+    sp12 = Ps[n - 1, 1, 2]
+    sp22 = Ps[n - 1, 2, 2]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2433,134 +2469,155 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            ee = work[ROW_E, b]
-            hh = work[ROW_DT, b]
-            a00 = ee * (c000 + hh * (c100 + hh * c200))
-            a01 = ee * (c001 + hh * (c101 + hh * c201))
-            a02 = ee * (c002 + hh * (c102 + hh * c202))
-            a10 = ee * (c010 + hh * (c110 + hh * c210))
-            a11 = ee * (c011 + hh * (c111 + hh * c211))
-            a12 = ee * (c012 + hh * (c112 + hh * c212))
-            a20 = ee * (c020 + hh * (c120 + hh * c220))
-            a21 = ee * (c021 + hh * (c121 + hh * c221))
-            a22 = ee * (c022 + hh * (c122 + hh * c222))
-            fm0 = mf[k, 0]
-            fm1 = mf[k, 1]
-            fm2 = mf[k, 2]
-            f00 = Pf[k, 0, 0]
-            f01 = Pf[k, 0, 1]
-            f02 = Pf[k, 0, 2]
-            f11 = Pf[k, 1, 1]
-            f12 = Pf[k, 1, 2]
-            f22 = Pf[k, 2, 2]
-            qq00 = f00 - pf00
-            qq01 = f01 - pf01
-            qq02 = f02 - pf02
-            qq11 = f11 - pf11
-            qq12 = f12 - pf12
-            qq22 = f22 - pf22
-            w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-            w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-            w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-            w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-            w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-            w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-            w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-            w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-            w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-            pp00 = w00 * a00 + w01 * a01 + w02 * a02
-            pp01 = w00 * a10 + w01 * a11 + w02 * a12
-            pp02 = w00 * a20 + w01 * a21 + w02 * a22
-            pp11 = w10 * a10 + w11 * a11 + w12 * a12
-            pp12 = w10 * a20 + w11 * a21 + w12 * a22
-            pp22 = w20 * a20 + w21 * a21 + w22 * a22
-            pp00 += pf00
-            pp01 += pf01
-            pp02 += pf02
-            pp11 += pf11
-            pp12 += pf12
-            pp22 += pf22
-            cc00 = a00 * f00 + a01 * f01 + a02 * f02
-            cc01 = a00 * f01 + a01 * f11 + a02 * f12
-            cc02 = a00 * f02 + a01 * f12 + a02 * f22
-            cc10 = a10 * f00 + a11 * f01 + a12 * f02
-            cc11 = a10 * f01 + a11 * f11 + a12 * f12
-            cc12 = a10 * f02 + a11 * f12 + a12 * f22
-            cc20 = a20 * f00 + a21 * f01 + a22 * f02
-            cc21 = a20 * f01 + a21 * f11 + a22 * f12
-            cc22 = a20 * f02 + a21 * f12 + a22 * f22
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            l10 = (pp01) * iv0
-            l20 = (pp02) * iv0
-            dg1 = pp11 - l10 * l10 * dg0
-            iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-            l21 = (pp12 - l20 * l10 * dg0) * iv1
-            dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-            iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-            z0 = cc00
-            z1 = cc10 - l10 * z0
-            z2 = cc20 - l20 * z0 - l21 * z1
-            gt20 = z2 * iv2
-            gt10 = z1 * iv1 - l21 * gt20
-            gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
-            z0 = cc01
-            z1 = cc11 - l10 * z0
-            z2 = cc21 - l20 * z0 - l21 * z1
-            gt21 = z2 * iv2
-            gt11 = z1 * iv1 - l21 * gt21
-            gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
-            z0 = cc02
-            z1 = cc12 - l10 * z0
-            z2 = cc22 - l20 * z0 - l21 * z1
-            gt22 = z2 * iv2
-            gt12 = z1 * iv1 - l21 * gt22
-            gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
-            dd0 = ms[k + 1, 0] - (a00 * fm0 + a01 * fm1 + a02 * fm2)
-            dd1 = ms[k + 1, 1] - (a10 * fm0 + a11 * fm1 + a12 * fm2)
-            dd2 = ms[k + 1, 2] - (a20 * fm0 + a21 * fm1 + a22 * fm2)
-            ms[k, 0] = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-            ms[k, 1] = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-            ms[k, 2] = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            dp01 = Ps[k + 1, 0, 1] - pp01
-            dp02 = Ps[k + 1, 0, 2] - pp02
-            dp11 = Ps[k + 1, 1, 1] - pp11
-            dp12 = Ps[k + 1, 1, 2] - pp12
-            dp22 = Ps[k + 1, 2, 2] - pp22
-            gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
-            gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
-            gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
-            gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
-            gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
-            gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
-            gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
-            gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
-            gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-            Ps[k, 0, 0] = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-            Ps[k, 0, 1] = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-            Ps[k, 1, 0] = Ps[k, 0, 1]
-            Ps[k, 0, 2] = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-            Ps[k, 2, 0] = Ps[k, 0, 2]
-            Ps[k, 1, 1] = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-            Ps[k, 1, 2] = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-            Ps[k, 2, 1] = Ps[k, 1, 2]
-            Ps[k, 2, 2] = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f02 = Pf[k, 0, 2]
+                f11 = Pf[k, 1, 1]
+                f12 = Pf[k, 1, 2]
+                f22 = Pf[k, 2, 2]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq02 = f02 - pf02
+                qq11 = f11 - pf11
+                qq12 = f12 - pf12
+                qq22 = f22 - pf22
+                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
+                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
+                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
+                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
+                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
+                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
+                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
+                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
+                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
+                pp00 = w00 * a00 + w01 * a01 + w02 * a02
+                pp01 = w00 * a10 + w01 * a11 + w02 * a12
+                pp02 = w00 * a20 + w01 * a21 + w02 * a22
+                pp11 = w10 * a10 + w11 * a11 + w12 * a12
+                pp12 = w10 * a20 + w11 * a21 + w12 * a22
+                pp22 = w20 * a20 + w21 * a21 + w22 * a22
+                pp00 += pf00
+                pp01 += pf01
+                pp02 += pf02
+                pp11 += pf11
+                pp12 += pf12
+                pp22 += pf22
+                cc00 = a00 * f00 + a01 * f01 + a02 * f02
+                cc01 = a00 * f01 + a01 * f11 + a02 * f12
+                cc02 = a00 * f02 + a01 * f12 + a02 * f22
+                cc10 = a10 * f00 + a11 * f01 + a12 * f02
+                cc11 = a10 * f01 + a11 * f11 + a12 * f12
+                cc12 = a10 * f02 + a11 * f12 + a12 * f22
+                cc20 = a20 * f00 + a21 * f01 + a22 * f02
+                cc21 = a20 * f01 + a21 * f11 + a22 * f12
+                cc22 = a20 * f02 + a21 * f12 + a22 * f22
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                l20 = (pp02) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                l21 = (pp12 - l20 * l10 * dg0) * iv1
+                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
+                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                z2 = cc20 - l20 * z0 - l21 * z1
+                gt20 = z2 * iv2
+                gt10 = z1 * iv1 - l21 * gt20
+                gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                z2 = cc21 - l20 * z0 - l21 * z1
+                gt21 = z2 * iv2
+                gt11 = z1 * iv1 - l21 * gt21
+                gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
+                z0 = cc02
+                z1 = cc12 - l10 * z0
+                z2 = cc22 - l20 * z0 - l21 * z1
+                gt22 = z2 * iv2
+                gt12 = z1 * iv1 - l21 * gt22
+                gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1 + a02 * fm2)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1 + a12 * fm2)
+                dd2 = sm2 - (a20 * fm0 + a21 * fm1 + a22 * fm2)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
+                nm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp02 = sp02 - pp02
+                dp11 = sp11 - pp11
+                dp12 = sp12 - pp12
+                dp22 = sp22 - pp22
+                gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
+                gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
+                gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
+                gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
+                gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
+                gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
+                gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
+                gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
+                gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
+                np00 = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
+                np01 = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
+                np02 = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
+                np11 = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
+                np12 = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
+                np22 = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
+                sm0 = nm0
+                sm1 = nm1
+                sm2 = nm2
+                sp00 = np00
+                sp01 = np01
+                sp02 = np02
+                sp11 = np11
+                sp12 = np12
+                sp22 = np22
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            ms[k, 1] = sm1
+            ms[k, 2] = sm2
+            Ps[k, 0, 0] = sp00
+            Ps[k, 0, 1] = sp01
+            Ps[k, 1, 0] = sp01
+            Ps[k, 0, 2] = sp02
+            Ps[k, 2, 0] = sp02
+            Ps[k, 1, 1] = sp11
+            Ps[k, 1, 2] = sp12
+            Ps[k, 2, 1] = sp12
+            Ps[k, 2, 2] = sp22
         end = begin
 
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sp00 = Ps[n - 1, 0, 0]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2572,40 +2629,50 @@ def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            a00 = work[ROW_A + 0, b]
-            fm0 = mf[k, 0]
-            f00 = Pf[k, 0, 0]
-            qq00 = f00 - pf00
-            w00 = a00 * qq00
-            pp00 = w00 * a00
-            pp00 += pf00
-            cc00 = a00 * f00
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            z0 = cc00
-            gt00 = z0 * iv0
-            dd0 = ms[k + 1, 0] - (a00 * fm0)
-            ms[k, 0] = fm0 + gt00 * dd0
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            gd00 = gt00 * dp00
-            Ps[k, 0, 0] = f00 + gd00 * gt00
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                fm0 = mf[k, 0]
+                f00 = Pf[k, 0, 0]
+                qq00 = f00 - pf00
+                w00 = a00 * qq00
+                pp00 = w00 * a00
+                pp00 += pf00
+                cc00 = a00 * f00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = cc00
+                gt00 = z0 * iv0
+                dd0 = sm0 - (a00 * fm0)
+                nm0 = fm0 + gt00 * dd0
+                dp00 = sp00 - pp00
+                gd00 = gt00 * dp00
+                np00 = f00 + gd00 * gt00
+                sm0 = nm0
+                sp00 = np00
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            Ps[k, 0, 0] = sp00
         end = begin
 
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
     pf11 = pinf[1, 1]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sm1 = ms[n - 1, 1]
+    sp00 = Ps[n - 1, 0, 0]
+    sp01 = Ps[n - 1, 0, 1]
+    sp11 = Ps[n - 1, 1, 1]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2617,71 +2684,84 @@ def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            a00 = work[ROW_A + 0, b]
-            a01 = work[ROW_A + 1, b]
-            a10 = work[ROW_A + 2, b]
-            a11 = work[ROW_A + 3, b]
-            fm0 = mf[k, 0]
-            fm1 = mf[k, 1]
-            f00 = Pf[k, 0, 0]
-            f01 = Pf[k, 0, 1]
-            f11 = Pf[k, 1, 1]
-            qq00 = f00 - pf00
-            qq01 = f01 - pf01
-            qq11 = f11 - pf11
-            w00 = a00 * qq00 + a01 * qq01
-            w01 = a00 * qq01 + a01 * qq11
-            w10 = a10 * qq00 + a11 * qq01
-            w11 = a10 * qq01 + a11 * qq11
-            pp00 = w00 * a00 + w01 * a01
-            pp01 = w00 * a10 + w01 * a11
-            pp11 = w10 * a10 + w11 * a11
-            pp00 += pf00
-            pp01 += pf01
-            pp11 += pf11
-            cc00 = a00 * f00 + a01 * f01
-            cc01 = a00 * f01 + a01 * f11
-            cc10 = a10 * f00 + a11 * f01
-            cc11 = a10 * f01 + a11 * f11
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            l10 = (pp01) * iv0
-            dg1 = pp11 - l10 * l10 * dg0
-            iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-            z0 = cc00
-            z1 = cc10 - l10 * z0
-            gt10 = z1 * iv1
-            gt00 = z0 * iv0 - l10 * gt10
-            z0 = cc01
-            z1 = cc11 - l10 * z0
-            gt11 = z1 * iv1
-            gt01 = z0 * iv0 - l10 * gt11
-            dd0 = ms[k + 1, 0] - (a00 * fm0 + a01 * fm1)
-            dd1 = ms[k + 1, 1] - (a10 * fm0 + a11 * fm1)
-            ms[k, 0] = fm0 + gt00 * dd0 + gt10 * dd1
-            ms[k, 1] = fm1 + gt01 * dd0 + gt11 * dd1
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            dp01 = Ps[k + 1, 0, 1] - pp01
-            dp11 = Ps[k + 1, 1, 1] - pp11
-            gd00 = gt00 * dp00 + gt10 * dp01
-            gd01 = gt00 * dp01 + gt10 * dp11
-            gd10 = gt01 * dp00 + gt11 * dp01
-            gd11 = gt01 * dp01 + gt11 * dp11
-            Ps[k, 0, 0] = f00 + gd00 * gt00 + gd01 * gt10
-            Ps[k, 0, 1] = f01 + gd00 * gt01 + gd01 * gt11
-            Ps[k, 1, 0] = Ps[k, 0, 1]
-            Ps[k, 1, 1] = f11 + gd10 * gt01 + gd11 * gt11
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f11 = Pf[k, 1, 1]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq11 = f11 - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                pp00 = w00 * a00 + w01 * a01
+                pp01 = w00 * a10 + w01 * a11
+                pp11 = w10 * a10 + w11 * a11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                cc00 = a00 * f00 + a01 * f01
+                cc01 = a00 * f01 + a01 * f11
+                cc10 = a10 * f00 + a11 * f01
+                cc11 = a10 * f01 + a11 * f11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                gt10 = z1 * iv1
+                gt00 = z0 * iv0 - l10 * gt10
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                gt11 = z1 * iv1
+                gt01 = z0 * iv0 - l10 * gt11
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp11 = sp11 - pp11
+                gd00 = gt00 * dp00 + gt10 * dp01
+                gd01 = gt00 * dp01 + gt10 * dp11
+                gd10 = gt01 * dp00 + gt11 * dp01
+                gd11 = gt01 * dp01 + gt11 * dp11
+                np00 = f00 + gd00 * gt00 + gd01 * gt10
+                np01 = f01 + gd00 * gt01 + gd01 * gt11
+                np11 = f11 + gd10 * gt01 + gd11 * gt11
+                sm0 = nm0
+                sm1 = nm1
+                sp00 = np00
+                sp01 = np01
+                sp11 = np11
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            ms[k, 1] = sm1
+            Ps[k, 0, 0] = sp00
+            Ps[k, 0, 1] = sp01
+            Ps[k, 1, 0] = sp01
+            Ps[k, 1, 1] = sp11
         end = begin
 
 
 @njit(cache=True, fastmath={'contract'})
 def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``."""
+    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
+
+    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
+    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
+    filtered one for a whole series, a checkpoint for a block of it). The
+    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
@@ -2689,8 +2769,15 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     pf11 = pinf[1, 1]
     pf12 = pinf[1, 2]
     pf22 = pinf[2, 2]
-    ms[n - 1, :] = mf[n - 1]
-    Ps[n - 1, :, :] = Pf[n - 1]
+    sm0 = ms[n - 1, 0]
+    sm1 = ms[n - 1, 1]
+    sm2 = ms[n - 1, 2]
+    sp00 = Ps[n - 1, 0, 0]
+    sp01 = Ps[n - 1, 0, 1]
+    sp02 = Ps[n - 1, 0, 2]
+    sp11 = Ps[n - 1, 1, 1]
+    sp12 = Ps[n - 1, 1, 2]
+    sp22 = Ps[n - 1, 2, 2]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2702,122 +2789,137 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
-            if dtr[b] == 0.0:
-                # repeated time: one state, already conditioned on every copy
-                ms[k, :] = ms[k + 1]
-                Ps[k, :, :] = Ps[k + 1]
-                continue
-            a00 = work[ROW_A + 0, b]
-            a01 = work[ROW_A + 1, b]
-            a02 = work[ROW_A + 2, b]
-            a10 = work[ROW_A + 3, b]
-            a11 = work[ROW_A + 4, b]
-            a12 = work[ROW_A + 5, b]
-            a20 = work[ROW_A + 6, b]
-            a21 = work[ROW_A + 7, b]
-            a22 = work[ROW_A + 8, b]
-            fm0 = mf[k, 0]
-            fm1 = mf[k, 1]
-            fm2 = mf[k, 2]
-            f00 = Pf[k, 0, 0]
-            f01 = Pf[k, 0, 1]
-            f02 = Pf[k, 0, 2]
-            f11 = Pf[k, 1, 1]
-            f12 = Pf[k, 1, 2]
-            f22 = Pf[k, 2, 2]
-            qq00 = f00 - pf00
-            qq01 = f01 - pf01
-            qq02 = f02 - pf02
-            qq11 = f11 - pf11
-            qq12 = f12 - pf12
-            qq22 = f22 - pf22
-            w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-            w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-            w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-            w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-            w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-            w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-            w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-            w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-            w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-            pp00 = w00 * a00 + w01 * a01 + w02 * a02
-            pp01 = w00 * a10 + w01 * a11 + w02 * a12
-            pp02 = w00 * a20 + w01 * a21 + w02 * a22
-            pp11 = w10 * a10 + w11 * a11 + w12 * a12
-            pp12 = w10 * a20 + w11 * a21 + w12 * a22
-            pp22 = w20 * a20 + w21 * a21 + w22 * a22
-            pp00 += pf00
-            pp01 += pf01
-            pp02 += pf02
-            pp11 += pf11
-            pp12 += pf12
-            pp22 += pf22
-            cc00 = a00 * f00 + a01 * f01 + a02 * f02
-            cc01 = a00 * f01 + a01 * f11 + a02 * f12
-            cc02 = a00 * f02 + a01 * f12 + a02 * f22
-            cc10 = a10 * f00 + a11 * f01 + a12 * f02
-            cc11 = a10 * f01 + a11 * f11 + a12 * f12
-            cc12 = a10 * f02 + a11 * f12 + a12 * f22
-            cc20 = a20 * f00 + a21 * f01 + a22 * f02
-            cc21 = a20 * f01 + a21 * f11 + a22 * f12
-            cc22 = a20 * f02 + a21 * f12 + a22 * f22
-            dg0 = pp00
-            iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-            l10 = (pp01) * iv0
-            l20 = (pp02) * iv0
-            dg1 = pp11 - l10 * l10 * dg0
-            iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-            l21 = (pp12 - l20 * l10 * dg0) * iv1
-            dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-            iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-            z0 = cc00
-            z1 = cc10 - l10 * z0
-            z2 = cc20 - l20 * z0 - l21 * z1
-            gt20 = z2 * iv2
-            gt10 = z1 * iv1 - l21 * gt20
-            gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
-            z0 = cc01
-            z1 = cc11 - l10 * z0
-            z2 = cc21 - l20 * z0 - l21 * z1
-            gt21 = z2 * iv2
-            gt11 = z1 * iv1 - l21 * gt21
-            gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
-            z0 = cc02
-            z1 = cc12 - l10 * z0
-            z2 = cc22 - l20 * z0 - l21 * z1
-            gt22 = z2 * iv2
-            gt12 = z1 * iv1 - l21 * gt22
-            gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
-            dd0 = ms[k + 1, 0] - (a00 * fm0 + a01 * fm1 + a02 * fm2)
-            dd1 = ms[k + 1, 1] - (a10 * fm0 + a11 * fm1 + a12 * fm2)
-            dd2 = ms[k + 1, 2] - (a20 * fm0 + a21 * fm1 + a22 * fm2)
-            ms[k, 0] = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-            ms[k, 1] = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-            ms[k, 2] = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-            dp00 = Ps[k + 1, 0, 0] - pp00
-            dp01 = Ps[k + 1, 0, 1] - pp01
-            dp02 = Ps[k + 1, 0, 2] - pp02
-            dp11 = Ps[k + 1, 1, 1] - pp11
-            dp12 = Ps[k + 1, 1, 2] - pp12
-            dp22 = Ps[k + 1, 2, 2] - pp22
-            gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
-            gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
-            gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
-            gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
-            gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
-            gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
-            gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
-            gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
-            gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-            Ps[k, 0, 0] = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-            Ps[k, 0, 1] = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-            Ps[k, 1, 0] = Ps[k, 0, 1]
-            Ps[k, 0, 2] = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-            Ps[k, 2, 0] = Ps[k, 0, 2]
-            Ps[k, 1, 1] = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-            Ps[k, 1, 2] = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-            Ps[k, 2, 1] = Ps[k, 1, 2]
-            Ps[k, 2, 2] = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f02 = Pf[k, 0, 2]
+                f11 = Pf[k, 1, 1]
+                f12 = Pf[k, 1, 2]
+                f22 = Pf[k, 2, 2]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq02 = f02 - pf02
+                qq11 = f11 - pf11
+                qq12 = f12 - pf12
+                qq22 = f22 - pf22
+                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
+                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
+                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
+                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
+                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
+                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
+                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
+                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
+                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
+                pp00 = w00 * a00 + w01 * a01 + w02 * a02
+                pp01 = w00 * a10 + w01 * a11 + w02 * a12
+                pp02 = w00 * a20 + w01 * a21 + w02 * a22
+                pp11 = w10 * a10 + w11 * a11 + w12 * a12
+                pp12 = w10 * a20 + w11 * a21 + w12 * a22
+                pp22 = w20 * a20 + w21 * a21 + w22 * a22
+                pp00 += pf00
+                pp01 += pf01
+                pp02 += pf02
+                pp11 += pf11
+                pp12 += pf12
+                pp22 += pf22
+                cc00 = a00 * f00 + a01 * f01 + a02 * f02
+                cc01 = a00 * f01 + a01 * f11 + a02 * f12
+                cc02 = a00 * f02 + a01 * f12 + a02 * f22
+                cc10 = a10 * f00 + a11 * f01 + a12 * f02
+                cc11 = a10 * f01 + a11 * f11 + a12 * f12
+                cc12 = a10 * f02 + a11 * f12 + a12 * f22
+                cc20 = a20 * f00 + a21 * f01 + a22 * f02
+                cc21 = a20 * f01 + a21 * f11 + a22 * f12
+                cc22 = a20 * f02 + a21 * f12 + a22 * f22
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                l20 = (pp02) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                l21 = (pp12 - l20 * l10 * dg0) * iv1
+                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
+                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                z2 = cc20 - l20 * z0 - l21 * z1
+                gt20 = z2 * iv2
+                gt10 = z1 * iv1 - l21 * gt20
+                gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                z2 = cc21 - l20 * z0 - l21 * z1
+                gt21 = z2 * iv2
+                gt11 = z1 * iv1 - l21 * gt21
+                gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
+                z0 = cc02
+                z1 = cc12 - l10 * z0
+                z2 = cc22 - l20 * z0 - l21 * z1
+                gt22 = z2 * iv2
+                gt12 = z1 * iv1 - l21 * gt22
+                gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1 + a02 * fm2)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1 + a12 * fm2)
+                dd2 = sm2 - (a20 * fm0 + a21 * fm1 + a22 * fm2)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
+                nm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp02 = sp02 - pp02
+                dp11 = sp11 - pp11
+                dp12 = sp12 - pp12
+                dp22 = sp22 - pp22
+                gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
+                gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
+                gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
+                gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
+                gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
+                gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
+                gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
+                gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
+                gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
+                np00 = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
+                np01 = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
+                np02 = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
+                np11 = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
+                np12 = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
+                np22 = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
+                sm0 = nm0
+                sm1 = nm1
+                sm2 = nm2
+                sp00 = np00
+                sp01 = np01
+                sp02 = np02
+                sp11 = np11
+                sp12 = np12
+                sp22 = np22
+            # (a repeated time keeps the state: one state, conditioned on every copy)
+            ms[k, 0] = sm0
+            ms[k, 1] = sm1
+            ms[k, 2] = sm2
+            Ps[k, 0, 0] = sp00
+            Ps[k, 0, 1] = sp01
+            Ps[k, 1, 0] = sp01
+            Ps[k, 0, 2] = sp02
+            Ps[k, 2, 0] = sp02
+            Ps[k, 1, 1] = sp11
+            Ps[k, 1, 2] = sp12
+            Ps[k, 2, 1] = sp12
+            Ps[k, 2, 2] = sp22
         end = begin
 
 
