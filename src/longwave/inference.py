@@ -37,10 +37,14 @@ def _check_inputs(model, series, method):
 
 
 def default_method(model: Model, series: Series):
-    """Kalman when the kernel has a state-space form, else Exact."""
+    """Kalman when the kernel's state-space form is exact, else Exact.
+
+    Approximate state-space forms (Periodic, SquaredExp) are used by Kalman
+    only when asked for explicitly, since Kalman is then itself an approximation.
+    """
     from .methods import Exact, Kalman
 
-    return Kalman() if model.kernel.has_state_space else Exact()
+    return Kalman() if model.kernel.has_exact_state_space else Exact()
 
 
 def log_marginal_likelihood(model, series, method=None, gradient: bool = False):
@@ -51,7 +55,7 @@ def log_marginal_likelihood(model, series, method=None, gradient: bool = False):
     model : Model
     series : Series
     method : Method or str, optional
-        Default: Kalman if the kernel has a state-space form, else Exact.
+        Default: Kalman if the kernel has an exact state-space form, else Exact.
     gradient : bool, default False
         Also return the gradient.
 
@@ -128,7 +132,7 @@ def fit(model, series, method=None, *, restarts: int = 0, seed: int = 0,
         Initial values, bounds, fixed flags and priors come from here.
     series : Series
     method : Method or str, optional
-        Default: Kalman if the kernel has a state-space form, else Exact.
+        Default: Kalman if the kernel has an exact state-space form, else Exact.
     restarts : int, default 0
         Extra starts, drawn around the initial coordinates with standard
         deviation ``spread`` (log units for positive parameters), clipped to bounds.

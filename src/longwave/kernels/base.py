@@ -26,6 +26,9 @@ from ..params import Param, as_param
 from .product_ss import product_state_space
 from .statespace import StateSpace, stack_blocks
 
+# Relative covariance error below which a state-space form counts as exact.
+EXACT_FORM_TOLERANCE = 1e-9
+
 
 class Kernel:
     """A stationary covariance function; see the module docstring."""
@@ -91,6 +94,18 @@ class Kernel:
         Exact, or approximate with a reported bound (:meth:`covariance_error_bound`).
         """
         return all(leaf.has_state_space for leaf in self.leaves())
+
+    @property
+    def has_exact_state_space(self) -> bool:
+        """Whether the state-space form is exact, so Kalman inference is exact.
+
+        True when :meth:`covariance_error_bound` is at most
+        ``EXACT_FORM_TOLERANCE`` (1e-9) of the prior variance: round-off level
+        for the double-precision filter.
+        """
+        if not self.has_state_space:
+            return False
+        return self.covariance_error_bound() <= EXACT_FORM_TOLERANCE * self.variance()
 
     def covariance_error_bound(self) -> float:
         """Bound on ``max_tau |k_ss(tau) - k(tau)|`` of the state-space form.
