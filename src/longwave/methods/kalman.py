@@ -19,6 +19,7 @@ from .._config import settings
 from .._loops import blocked_transition as blocked
 from .._loops import kalman as loops
 from .._loops import kalman_fast as fast
+from .._loops import search
 from .base import Evaluation, Method, Posterior, require_noise
 
 # Steps whose transitions the specialised loops compute in one vectorised pass.
@@ -224,6 +225,8 @@ class KalmanPosterior(Posterior):
     smoothed states of a block are rebuilt from the checkpoint at the block's
     end by the same RTS recursion, so predictions equal those of a full
     smoother pass exactly, at O(block) extra work per block a prediction touches.
+    The checkpoints come from one backward pass over all blocks, run by the
+    first prediction, which predicts its own queries block by block on the way.
 
     Parameters
     ----------
@@ -262,12 +265,12 @@ class KalmanPosterior(Posterior):
             form.loop("filter_store")(data, scal, form.pinf, form.trans, self._work, *self._filt)
         self._starts = np.arange(0, n, self._block)
         nb = self._starts.size
+        # Smoothed state at each block start, filled by the first prediction's
+        # backward pass over all blocks (which predicts each block's queries as
+        # it goes, so the first prediction costs one smoother pass, not two).
         self._ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
+        self._have_ckpt = False
         self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
-        for j in range(nb - 1, -1, -1):  # backward, each block from the next one's checkpoint
-            ms, Ps = self._smoothed(int(self._starts[j]), self._block_end(j))
-            self._ckpt[0][j] = ms[0]
-            self._ckpt[1][j] = Ps[0]
 
     def _block_end(self, j):
         return int(self._starts[j + 1]) if j + 1 < self._starts.size else self.series.n
@@ -322,35 +325,66 @@ class KalmanPosterior(Posterior):
     def _latent(self, t):
         t_data = self.series.t
         n = t_data.size
-        idx = np.searchsorted(t_data, t, side="right") - 1
-        # Block of the smoothed state each query needs (the next data point's).
-        blk = np.minimum(idx + 1, n - 1) // self._block
-        order = np.argsort(blk, kind="stable")
-        groups = np.split(order, np.flatnonzero(np.diff(blk[order])) + 1)
+        idx = np.empty(t.size, dtype=np.int64)
+        in_order = search.locate(t_data, t, idx)  # np.searchsorted(t_data, t, "right") - 1
         mean = np.empty(t.size)
         var = np.empty(t.size)
-        mf, Pf = self._filt
-        for group in groups:
-            if group.size == 0:
-                continue
-            j = int(blk[group[0]])
-            end = self._block_end(j)
-            # Window lo:end holds the filtered state before every query of the block.
-            lo = max(int(self._starts[j]) - 1, 0)
-            smoothed = self._smoothed(lo, end)
-            m_out = np.empty(group.size)
-            v_out = np.empty(group.size)
-            tq, iq = t[group], idx[group] - lo
-            filt = (mf[lo:end], Pf[lo:end])
-            if self._form is None:
-                loops.predict_between(
-                    tq, iq, t_data[lo:end], self._ss.H, self._pinf, self._trans,
-                    filt, smoothed, m_out, v_out,
-                )
-            else:
-                self._form.loop("predict")(
-                    tq, iq, t_data[lo:end], self._pinf, self._trans, filt, smoothed, m_out, v_out
-                )
-            mean[group] = m_out
-            var[group] = v_out
+        # The queries of each block (that of the smoothed state they need, the next
+        # data point's): slices of a sorted grid, else groups of indices.
+        jobs = {}
+        if in_order:
+            cuts = np.searchsorted(idx, self._starts[1:] - 1, side="left")
+            for j, (a, b) in enumerate(zip(np.concatenate([[0], cuts]),
+                                           np.concatenate([cuts, [t.size]]))):
+                if b > a:
+                    jobs[j] = slice(int(a), int(b))
+        else:
+            blk = np.minimum(idx + 1, n - 1) // self._block
+            order = np.argsort(blk, kind="stable")
+            for group in np.split(order, np.flatnonzero(np.diff(blk[order])) + 1):
+                if group.size:
+                    jobs[int(blk[group[0]])] = group
+
+        def run(j, sel):
+            if isinstance(sel, slice):
+                self._predict_block(j, t[sel], idx[sel], mean[sel], var[sel])
+                return
+            m_out, v_out = np.empty(sel.size), np.empty(sel.size)
+            self._predict_block(j, t[sel], idx[sel], m_out, v_out)
+            mean[sel], var[sel] = m_out, v_out
+
+        if not self._have_ckpt:
+            for j in range(self._starts.size - 1, -1, -1):
+                # backward: each block from the next one's checkpoint
+                start = int(self._starts[j])
+                lo = max(start - 1, 0)
+                ms, Ps = self._smoothed(lo, self._block_end(j))
+                self._ckpt[0][j] = ms[start - lo]
+                self._ckpt[1][j] = Ps[start - lo]
+                if j in jobs:
+                    run(j, jobs[j])
+            self._have_ckpt = True
+        else:
+            for j, sel in jobs.items():
+                run(j, sel)
         return mean, var
+
+    def _predict_block(self, j, tq, idx, m_out, v_out):
+        """Queries whose next data point lies in block ``j``; writes ``m_out``, ``v_out``."""
+        t_data = self.series.t
+        mf, Pf = self._filt
+        end = self._block_end(j)
+        # Window lo:end holds the filtered state before every query of the block.
+        lo = max(int(self._starts[j]) - 1, 0)
+        smoothed = self._smoothed(lo, end)
+        iq = idx - lo
+        filt = (mf[lo:end], Pf[lo:end])
+        if self._form is None:
+            loops.predict_between(
+                tq, iq, t_data[lo:end], self._ss.H, self._pinf, self._trans,
+                filt, smoothed, m_out, v_out,
+            )
+        else:
+            self._form.loop("predict")(
+                tq, iq, t_data[lo:end], self._pinf, self._trans, filt, smoothed, m_out, v_out
+            )

@@ -1,0 +1,59 @@
+"""Locating query times among sorted data times."""
+
+from __future__ import annotations
+
+from numba import njit, prange
+
+
+@njit(cache=True)
+def _is_sorted(x):
+    for i in range(1, x.size):
+        if x[i] < x[i - 1]:
+            return False
+    return True
+
+
+@njit(cache=True)
+def _last_at_or_before(t, x, lo=0):
+    """Largest i with ``t[i] <= x``, or -1 (binary search; ``t[:lo] <= x`` is known)."""
+    hi = t.size
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if t[mid] <= x:
+            lo = mid + 1
+        else:
+            hi = mid
+    return lo - 1
+
+
+@njit(cache=True, parallel=True)
+def _search_each(t, tq, idx):
+    for i in prange(tq.size):
+        idx[i] = _last_at_or_before(t, tq[i])
+
+
+@njit(cache=True)
+def locate(t, tq, idx):
+    """``idx[i]`` = index of the last ``t <= tq[i]`` (-1 before the first).
+
+    Equals ``np.searchsorted(t, tq, side="right") - 1`` for sorted ``t``. Sorted
+    queries (the usual grid) are merged in one sweep, stepping a few data
+    points at a time and jumping by binary search over longer stretches, so a
+    few queries in a long series stay cheap; otherwise each query is a binary
+    search, in parallel. Returns whether ``tq`` was sorted.
+    """
+    if not _is_sorted(tq):
+        _search_each(t, tq, idx)
+        return False
+    n = t.size
+    k = 0  # t[:k] <= current query
+    for i in range(tq.size):
+        x = tq[i]
+        steps = 0
+        while k < n and t[k] <= x and steps < 8:
+            k += 1
+            steps += 1
+        if k < n and t[k] <= x:
+            k = _last_at_or_before(t, x, k) + 1
+        idx[i] = k - 1
+    return True
