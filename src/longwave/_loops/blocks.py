@@ -171,17 +171,20 @@ def _contract_point(weight, diff, codes, params, term_start, slots, fac, grad, w
 
 
 @njit(cache=True, parallel=True)
-def contract_block(z, t, form, adjoint, with_z, partial, gz_out):
+def contract_block(z, t, form, adjoint, colscale, u, v, with_z, partial, gz_out):
     """Contract an adjoint with kernel derivatives over one (m, c) block.
 
-    Row ``k`` of ``partial`` receives ``sum adjoint[a, i] * dK[a, i] / dlog(theta_s)``
-    over its share of the rows ``a`` (one share per parallel task; the caller
-    sums the rows), and, when ``with_z``, ``gz_out[a] += sum_i adjoint[a, i] dK[a, i]/dz_a``.
+    The adjoint is ``W[a, i] = adjoint[a, i] * colscale[i] + u[a] * v[i]`` (a
+    scaled matrix plus a rank-one term, formed here rather than in numpy to
+    save two passes over the block). Row ``k`` of ``partial`` receives
+    ``sum W[a, i] * dK[a, i] / dlog(theta_s)`` over its share of the rows
+    ``a`` (one share per parallel task; the caller sums the rows), and, when
+    ``with_z``, ``gz_out[a] += sum_i W[a, i] dK[a, i] / dz_a``.
 
     Parameters
     ----------
     z : (m,), t : (c,) times (input); form : flat kernel form (input)
-    adjoint : (m, c) ``dF/dK`` for this block (input)
+    adjoint : (m, c); colscale : (c,); u : (m,); v : (c,) (input)
     partial : (n_tasks, p) zeros (output); gz_out : (m,) accumulated (output)
     """
     codes, params, term_start, slots = form
@@ -191,11 +194,12 @@ def contract_block(z, t, form, adjoint, with_z, partial, gz_out):
         fac = np.empty((codes.size, 2 + MAX_PARAMS))
         row = partial[k]
         for a in range(k * m // n_tasks, (k + 1) * m // n_tasks):
-            za = z[a]
+            za, ua = z[a], u[a]
             dz_sum = 0.0
             for i in range(t.size):
-                dz_sum += _contract_point(adjoint[a, i], za - t[i], codes, params,
-                                          term_start, slots, fac, row, with_z)
+                w = adjoint[a, i] * colscale[i] + ua * v[i]
+                dz_sum += _contract_point(w, za - t[i], codes, params, term_start, slots, fac,
+                                          row, with_z)
             gz_out[a] += dz_sum
 
 

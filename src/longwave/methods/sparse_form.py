@@ -5,9 +5,10 @@ on the inducing times ``z`` (m,) and a chunk of data times ``t`` (c,):
 
 * ``block(z, t, colscale)`` -> (m, c) ``colscale[i] * k(|z_a - t_i|)``;
 * ``square(z)`` -> (m, m) ``k(|z_a - z_b|)``;
-* ``contract(z, t, adjoint, with_z, grad, gz)``: add
-  ``sum adjoint * dK/dlog(theta)`` into ``grad`` (p,) and, with ``with_z``,
-  ``sum_i adjoint[a, i] dK[a, i]/dz_a`` into ``gz`` (m,);
+* ``contract(z, t, adjoint, with_z, grad, gz, colscale=None, u=None, v=None)``:
+  with ``W = adjoint * colscale + outer(u, v)`` (scale and rank-one term
+  optional), add ``sum W * dK/dlog(theta)`` into ``grad`` (p,) and, with
+  ``with_z``, ``sum_i W[a, i] dK[a, i]/dz_a`` into ``gz`` (m,);
 * ``contract_square(z, adjoint, with_z, grad, gz)``: the same for ``Kuu``.
 
 The compiled evaluator flattens the kernel into a sum of products of
@@ -111,10 +112,13 @@ class CompiledBlocks:
         loops.square_block(z, self.form.as_tuple(), out)
         return out
 
-    def contract(self, z, t, adjoint, with_z, grad, gz):
+    def contract(self, z, t, adjoint, with_z, grad, gz, colscale=None, u=None, v=None):
+        colscale = np.ones(t.size) if colscale is None else colscale
+        u, v = (np.zeros(z.size), np.zeros(t.size)) if u is None else (u, v)
         # several shares per thread so that uneven rows still balance
         partial = np.zeros((min(z.size, 4 * numba.get_num_threads()), grad.size))
-        loops.contract_block(z, t, self.form.as_tuple(), adjoint, with_z, partial, gz)
+        loops.contract_block(z, t, self.form.as_tuple(), adjoint, colscale, u, v, with_z,
+                             partial, gz)
         grad += partial.sum(axis=0)
 
     def contract_square(self, z, adjoint, with_z, grad, gz):
@@ -147,10 +151,12 @@ class NumpyBlocks:
                 "give each primitive a compiled form (DEVELOPERS.md, 'Sparse methods')"
             )
 
-    def contract(self, z, t, adjoint, with_z, grad, gz):
+    def contract(self, z, t, adjoint, with_z, grad, gz, colscale=None, u=None, v=None):
         self._no_z(with_z)
+        w = adjoint if colscale is None else adjoint * colscale
+        w = w if u is None else w + np.outer(u, v)
         dk = self.kernel.grad(np.abs(z[:, None] - t[None, :]))
-        grad += np.einsum("pac,ac->p", dk, adjoint)
+        grad += np.einsum("pac,ac->p", dk, w)
 
     def contract_square(self, z, adjoint, with_z, grad, gz):
         self._no_z(with_z)

@@ -130,11 +130,11 @@ def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     """
     s2 = _noise(ctx, err)
     w = 1.0 / s2
+    sw = np.sqrt(w)
     r = y - ctx.mean
-    a = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, np.ones(t.size)))
-    aw = a * np.sqrt(w)
+    aw = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, sw))  # Linv K diag(sqrt(w))
     acc.mat += aw @ aw.T
-    acc.vec += a @ (w * r)
+    acc.vec += aw @ (sw * r)
     acc.n += t.size
     acc.sum_rr += float(w @ (r * r))
     acc.sum_log += float(np.log(s2).sum())
@@ -160,9 +160,9 @@ def vfe_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     v = ctx.adj_mat @ k
     kgk = np.einsum("ac,ac->c", k, v)
     gk = ctx.adj_vec @ k
-    v *= 2.0 * w
-    v += np.outer(ctx.adj_vec, w * r)  # v is now the adjoint dF/dK of the chunk
-    ctx.blocks.contract(ctx.z, t, v, ctx.with_z, acc.grad, acc.grad_z)
+    # the adjoint dF/dK of the chunk is v diag(2 w) + g (w r)^T, formed inside the loop
+    ctx.blocks.contract(ctx.z, t, v, ctx.with_z, acc.grad, acc.grad_z,
+                        colscale=2.0 * w, u=ctx.adj_vec, v=w * r)
     dw = kgk + r * gk - 0.5 * r * r + 0.5 * s2 - 0.5 * ctx.kd
     acc.sum_dnoise += float(-(w * w) @ dw)
     acc.sum_dresid += float(w @ (gk - r))
@@ -207,11 +207,11 @@ def fitc_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     apa = np.einsum("ac,ac->c", a, p)
     alpha = (r - ctx.adj_vec @ a) / d
     delta = 0.5 * (alpha * alpha - 1.0 / d + apa / (d * d))
-    x = np.outer(ctx.adj_vec, alpha)
-    x -= p / d
-    x -= a * (2.0 * delta)
-    adj = unwhiten(ctx.linv, x)
-    ctx.blocks.contract(ctx.z, t, adj, ctx.with_z, acc.grad, acc.grad_z)
+    p *= -1.0 / d
+    p -= a * (2.0 * delta)
+    adj = unwhiten(ctx.linv, p)  # plus the rank-one Linv^T g alpha^T, added in the loop
+    ctx.blocks.contract(ctx.z, t, adj, ctx.with_z, acc.grad, acc.grad_z,
+                        u=ctx.linv.T @ ctx.adj_vec, v=alpha)
     acc.mat += (a * delta) @ a.T
     acc.sum_dkd += float(delta.sum())
     acc.sum_dnoise += float(delta.sum())
