@@ -740,19 +740,23 @@ def gen_predict(code, tr):
     code.dedent()
     code("else:")
     code.indent()
-    code("if k == n - 1:", "    src_m = ms[k]", "    src_P = Ps[k]", "else:",
-         "    src_m = mf[k]", "    src_P = Pf[k]")
+    code(
+        "# after the last time the smoothed state, else the filtered one (no views:",
+        "# a view per query would cost reference-count updates)",
+        "src_m = ms if k == n - 1 else mf",
+        "src_P = Ps if k == n - 1 else Pf",
+    )
     if tr.single:
         tr.load(code, "a", "b", dt_row="ROW_A", e_row="ROW_A + 1")
     else:
         tr.load(code, "a", "b")
     for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = src_P[{a}, {b}] - {sym('pf', a, b)}")
+        code(f"{sym('qq', a, b)} = src_P[k, {a}, {b}] - {sym('pf', a, b)}")
     axat(code, d, "a", "qq", "w", "sp")
     for a, b in upper(d):
         code(f"{sym('sp', a, b)} += {sym('pf', a, b)}")
     for a in range(d):
-        code(f"sm{a} = " + dot([f"a{a}{c} * src_m[{c}]" for c in range(d)]))
+        code(f"sm{a} = " + dot([f"a{a}{c} * src_m[k, {c}]" for c in range(d)]))
     code.dedent()
     code("mean = sm0", "var = sp00", "if k < n - 1:")
     code.indent()

@@ -2964,19 +2964,17 @@ def predict_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 sm0 = 0.0
                 sp00 = pf00
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 ee = work[ROW_A + 1, b]
                 a00 = ee * (c000)
-                qq00 = src_P[0, 0] - pf00
+                qq00 = src_P[k, 0, 0] - pf00
                 w00 = a00 * qq00
                 sp00 = w00 * a00
                 sp00 += pf00
-                sm0 = a00 * src_m[0]
+                sm0 = a00 * src_m[k, 0]
             mean = sm0
             var = sp00
             if k < n - 1:
@@ -3052,21 +3050,19 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 sp01 = pf01
                 sp11 = pf11
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 ee = work[ROW_A + 1, b]
                 hh = work[ROW_A, b]
                 a00 = ee * (c000 + hh * c100)
                 a01 = ee * (c001 + hh * c101)
                 a10 = ee * (c010 + hh * c110)
                 a11 = ee * (c011 + hh * c111)
-                qq00 = src_P[0, 0] - pf00
-                qq01 = src_P[0, 1] - pf01
-                qq11 = src_P[1, 1] - pf11
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq11 = src_P[k, 1, 1] - pf11
                 w00 = a00 * qq00 + a01 * qq01
                 w01 = a00 * qq01 + a01 * qq11
                 w10 = a10 * qq00 + a11 * qq01
@@ -3077,8 +3073,8 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 sp00 += pf00
                 sp01 += pf01
                 sp11 += pf11
-                sm0 = a00 * src_m[0] + a01 * src_m[1]
-                sm1 = a10 * src_m[0] + a11 * src_m[1]
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
             mean = sm0
             var = sp00
             if k < n - 1:
@@ -3202,12 +3198,10 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 sp12 = pf12
                 sp22 = pf22
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 ee = work[ROW_A + 1, b]
                 hh = work[ROW_A, b]
                 a00 = ee * (c000 + hh * (c100 + hh * c200))
@@ -3219,12 +3213,12 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 a20 = ee * (c020 + hh * (c120 + hh * c220))
                 a21 = ee * (c021 + hh * (c121 + hh * c221))
                 a22 = ee * (c022 + hh * (c122 + hh * c222))
-                qq00 = src_P[0, 0] - pf00
-                qq01 = src_P[0, 1] - pf01
-                qq02 = src_P[0, 2] - pf02
-                qq11 = src_P[1, 1] - pf11
-                qq12 = src_P[1, 2] - pf12
-                qq22 = src_P[2, 2] - pf22
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq02 = src_P[k, 0, 2] - pf02
+                qq11 = src_P[k, 1, 1] - pf11
+                qq12 = src_P[k, 1, 2] - pf12
+                qq22 = src_P[k, 2, 2] - pf22
                 w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
                 w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
                 w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
@@ -3246,9 +3240,9 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 sp11 += pf11
                 sp12 += pf12
                 sp22 += pf22
-                sm0 = a00 * src_m[0] + a01 * src_m[1] + a02 * src_m[2]
-                sm1 = a10 * src_m[0] + a11 * src_m[1] + a12 * src_m[2]
-                sm2 = a20 * src_m[0] + a21 * src_m[1] + a22 * src_m[2]
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
+                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
             mean = sm0
             var = sp00
             if k < n - 1:
@@ -3359,18 +3353,16 @@ def predict_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 sm0 = 0.0
                 sp00 = pf00
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 a00 = work[ROW_A + 0, b]
-                qq00 = src_P[0, 0] - pf00
+                qq00 = src_P[k, 0, 0] - pf00
                 w00 = a00 * qq00
                 sp00 = w00 * a00
                 sp00 += pf00
-                sm0 = a00 * src_m[0]
+                sm0 = a00 * src_m[k, 0]
             mean = sm0
             var = sp00
             if k < n - 1:
@@ -3433,19 +3425,17 @@ def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 sp01 = pf01
                 sp11 = pf11
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 a00 = work[ROW_A + 0, b]
                 a01 = work[ROW_A + 1, b]
                 a10 = work[ROW_A + 2, b]
                 a11 = work[ROW_A + 3, b]
-                qq00 = src_P[0, 0] - pf00
-                qq01 = src_P[0, 1] - pf01
-                qq11 = src_P[1, 1] - pf11
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq11 = src_P[k, 1, 1] - pf11
                 w00 = a00 * qq00 + a01 * qq01
                 w01 = a00 * qq01 + a01 * qq11
                 w10 = a10 * qq00 + a11 * qq01
@@ -3456,8 +3446,8 @@ def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 sp00 += pf00
                 sp01 += pf01
                 sp11 += pf11
-                sm0 = a00 * src_m[0] + a01 * src_m[1]
-                sm1 = a10 * src_m[0] + a11 * src_m[1]
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
             mean = sm0
             var = sp00
             if k < n - 1:
@@ -3548,12 +3538,10 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 sp12 = pf12
                 sp22 = pf22
             else:
-                if k == n - 1:
-                    src_m = ms[k]
-                    src_P = Ps[k]
-                else:
-                    src_m = mf[k]
-                    src_P = Pf[k]
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
                 a00 = work[ROW_A + 0, b]
                 a01 = work[ROW_A + 1, b]
                 a02 = work[ROW_A + 2, b]
@@ -3563,12 +3551,12 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 a20 = work[ROW_A + 6, b]
                 a21 = work[ROW_A + 7, b]
                 a22 = work[ROW_A + 8, b]
-                qq00 = src_P[0, 0] - pf00
-                qq01 = src_P[0, 1] - pf01
-                qq02 = src_P[0, 2] - pf02
-                qq11 = src_P[1, 1] - pf11
-                qq12 = src_P[1, 2] - pf12
-                qq22 = src_P[2, 2] - pf22
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq02 = src_P[k, 0, 2] - pf02
+                qq11 = src_P[k, 1, 1] - pf11
+                qq12 = src_P[k, 1, 2] - pf12
+                qq22 = src_P[k, 2, 2] - pf22
                 w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
                 w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
                 w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
@@ -3590,9 +3578,9 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 sp11 += pf11
                 sp12 += pf12
                 sp22 += pf22
-                sm0 = a00 * src_m[0] + a01 * src_m[1] + a02 * src_m[2]
-                sm1 = a10 * src_m[0] + a11 * src_m[1] + a12 * src_m[2]
-                sm2 = a20 * src_m[0] + a21 * src_m[1] + a22 * src_m[2]
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
+                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
             mean = sm0
             var = sp00
             if k < n - 1:
