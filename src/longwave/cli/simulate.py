@@ -7,6 +7,7 @@ Examples::
 
     longwave simulate survey.h5 --objects 5000 --seed 3
     longwave simulate quiet.h5 --classes flickering,wandering --points 50 120 --outliers 0
+    longwave simulate pulsators.h5 --classes pulsating --objects 200
     longwave simulate long.npz --long 1e6 --scale 0.5
 """
 
@@ -27,10 +28,11 @@ def _count(text: str) -> int:
 
 
 def register(sub) -> None:
-    from ..demo.campaign import CLASSES
+    from ..demo.campaign import CLASSES, OPTIONAL_CLASSES
 
     names = ", ".join(f"{c.name} ({c.spec}, scale {c.scale[0]:g}-{c.scale[1]:g} d)"
                       for c in CLASSES)
+    names += "; by name only: " + ", ".join(f"{c.name} ({c.spec})" for c in OPTIONAL_CLASSES)
     p = sub.add_parser(
         "simulate", help="write a simulated survey (or one long series) with its truth",
         description="Simulate sources of a season-long robotic-telescope campaign, each in a "
@@ -45,7 +47,8 @@ def register(sub) -> None:
     p.add_argument("--points", type=_count, nargs=2, default=(150, 400), metavar=("LOW", "HIGH"),
                    help="range of observations per source (default: 150 400)")
     p.add_argument("--classes", default=None, metavar="NAMES",
-                   help="comma-separated classes (default: all, in their usual proportions)")
+                   help="comma-separated classes (default: flickering,wandering,random_walk "
+                   "in their usual proportions; pulsating only when named)")
     p.add_argument("--days", type=float, default=150.0, help="season length (default: 150)")
     p.add_argument("--outliers", type=float, default=0.01, metavar="FRACTION",
                    help="fraction of points turned into 5-15 sigma outliers (default: 0.01)")

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels import Matern12, Matern32
+from ..kernels import Matern12, Matern32, Oscillator
 from ..model import Model
 from ..simulate import simulate_series
 from ..storage import SurveyFile, write_survey
@@ -28,20 +28,26 @@ from .cadence import night_cadence
 
 #: Truth columns a campaign carries, in the order they are stored as metadata.
 TRUTH_KEYS = ("amplitude", "scale", "mean", "excess_noise")
+#: Further truth columns, stored only when a class with such parameters is
+#: simulated (NaN for the other sources).
+EXTRA_TRUTH_KEYS = ("frequency", "quality")
 
 
 @dataclass(frozen=True)
 class VariabilityClass:
     """One class of sources: a kernel family and ranges for its hyperparameters.
 
-    ``amplitude`` and ``scale`` ranges are sampled log-uniformly.
+    Every range is sampled log-uniformly. ``scale`` is ``None`` for kernels
+    without one; ``extra`` holds the ranges of their other parameters, as
+    ``(name, (low, high))`` pairs.
     """
 
     name: str
     kernel: type
     amplitude: tuple[float, float]
-    scale: tuple[float, float]
+    scale: tuple[float, float] | None
     weight: float
+    extra: tuple = ()
 
     @property
     def spec(self) -> str:
@@ -55,6 +61,18 @@ CLASSES = (
     VariabilityClass("random_walk", Matern12, (0.1, 0.4), (10.0, 80.0), 0.2),
 )
 
+#: Classes available by name but not in the default mix. ``pulsating``: a
+#: damped, randomly driven oscillation with periods of 0.5-5 days (angular
+#: frequency 2 pi / period) that stays coherent for 2-20 radians per cycle
+#: (quality factor). A survey-wide fit needs a starting frequency near each
+#: source's own, which a single specification cannot give; so the demo,
+#: which fits one specification to every source, leaves this class out.
+OPTIONAL_CLASSES = (
+    VariabilityClass("pulsating", Oscillator, (0.05, 0.3), None, 0.2,
+                     extra=(("frequency", (2 * np.pi / 5.0, 2 * np.pi / 0.5)),
+                            ("quality", (2.0, 20.0)))),
+)
+
 
 def select_classes(names) -> tuple[VariabilityClass, ...]:
     """The built-in classes named in ``names`` (a sequence or a comma-separated string).
@@ -66,7 +84,7 @@ def select_classes(names) -> tuple[VariabilityClass, ...]:
     """
     if isinstance(names, str):
         names = [n.strip() for n in names.split(",") if n.strip()]
-    known = {c.name: c for c in CLASSES}
+    known = {c.name: c for c in CLASSES + OPTIONAL_CLASSES}
     unknown = [n for n in names if n not in known]
     if unknown or not names:
         raise ValueError(f"variability classes must be among {', '.join(known)}, got "
@@ -109,7 +127,8 @@ class Campaign:
         out = {"class": self.classes.astype(str),
                "kernel": (self.kernels if self.kernels is not None
                           else np.full(len(self), "")).astype(str)}
-        out.update({f"true_{k}": np.asarray(self.truth[k], float) for k in TRUTH_KEYS})
+        out.update({f"true_{k}": np.asarray(self.truth[k], float)
+                    for k in TRUTH_KEYS + EXTRA_TRUTH_KEYS if k in self.truth})
         out["n_outliers"] = np.asarray(self.n_outliers, np.int64)
         return out
 
@@ -133,7 +152,9 @@ def read_truth(path) -> dict:
     -------
     dict of str to ndarray
         ``id``, ``class``, ``kernel``, ``amplitude``, ``scale``, ``mean``,
-        ``excess_noise``, ``n_outliers`` and ``n`` (points), one entry per object.
+        ``excess_noise``, ``n_outliers`` and ``n`` (points), one entry per object;
+        also ``frequency`` and ``quality`` when pulsating sources were simulated.
+        A parameter a source's kernel lacks is NaN.
 
     Raises
     ------
@@ -150,10 +171,12 @@ def read_truth(path) -> dict:
         # Metadata come with the points; batches read each column in one go.
         rows = [obj.meta for batch in sf.iter_batches(batch_size=4096) for obj in batch]
         out = {"id": sf.ids.astype(str), "n": sf.n_points.copy()}
+        names = set(sf.meta_names)
     out["class"] = np.array([r["class"] for r in rows], dtype=str)
     out["kernel"] = np.array([r.get("kernel", "") for r in rows], dtype=str)
-    for k in TRUTH_KEYS:
-        out[k] = np.array([r[f"true_{k}"] for r in rows], dtype=float)
+    for k in TRUTH_KEYS + EXTRA_TRUTH_KEYS:
+        if f"true_{k}" in names:
+            out[k] = np.array([r[f"true_{k}"] for r in rows], dtype=float)
     out["n_outliers"] = np.array([r.get("n_outliers", 0) for r in rows], dtype=np.int64)
     return out
 
@@ -196,7 +219,7 @@ def simulate_campaign(n_objects: int = 1000, *, points=(150, 400), days: float =
     weights = np.array([c.weight for c in classes], dtype=float)
     which = rng.choice(len(classes), size=n_objects, p=weights / weights.sum())
     out = Campaign([], [], [], [], np.empty(n_objects, dtype="U16"),
-                   {k: np.empty(n_objects) for k in ("amplitude", "scale", "mean", "excess_noise")},
+                   {k: np.full(n_objects, np.nan) for k in TRUTH_KEYS},
                    np.zeros(n_objects, dtype=np.int64), np.empty(n_objects, dtype="U16"))
     for i in range(n_objects):
         cls = classes[which[i]]
@@ -204,13 +227,18 @@ def simulate_campaign(n_objects: int = 1000, *, points=(150, 400), days: float =
         t = night_cadence(n, years=days / 365.25, season_fraction=1.0,
                           night_fraction=clear_fraction, night_hours=night_hours, rng=rng)
         amp = float(np.exp(rng.uniform(*np.log(cls.amplitude))))
-        scale = float(np.exp(rng.uniform(*np.log(cls.scale))))
+        values = {"amplitude": amp}
+        # Draw order kept as before optional classes existed: amplitude, scale, then
+        # extras, so the built-in classes' seeds give the same sources as ever.
+        if cls.scale is not None:
+            values["scale"] = float(np.exp(rng.uniform(*np.log(cls.scale))))
+        for key, bounds in cls.extra:
+            values[key] = float(np.exp(rng.uniform(*np.log(bounds))))
         brightness = rng.uniform(12.0, 18.0)
         base_err = 0.005 * 10 ** (0.2 * (brightness - 12.0))  # fainter: larger errors
         err = base_err * rng.uniform(0.8, 1.5, n)
         excess = 0.5 * base_err
-        model = Model(cls.kernel(amplitude=amp, scale=scale), mean=brightness,
-                      excess_noise=excess)
+        model = Model(cls.kernel(**values), mean=brightness, excess_noise=excess)
         series, _ = simulate_series(model, t, err, rng=rng)
         y = series.y.copy()
         bad = rng.random(n) < outlier_fraction
@@ -221,8 +249,9 @@ def simulate_campaign(n_objects: int = 1000, *, points=(150, 400), days: float =
         out.errors.append(series.err.copy())
         out.classes[i] = cls.name
         out.kernels[i] = cls.spec
-        for key, val in (("amplitude", amp), ("scale", scale), ("mean", brightness),
-                         ("excess_noise", excess)):
+        for key, val in {**values, "mean": brightness, "excess_noise": excess}.items():
+            if key not in out.truth:
+                out.truth[key] = np.full(n_objects, np.nan)
             out.truth[key][i] = val
         out.n_outliers[i] = int(bad.sum())
     return out

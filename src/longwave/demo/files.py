@@ -75,8 +75,9 @@ def simulate_survey_file(path, *, objects: int = 1000, points=(150, 400), days: 
     objects, points, days, outlier_fraction, clear_fraction, night_hours, seed
         As for :func:`simulate_campaign`.
     classes : str or sequence of str, optional
-        Names of built-in classes (default: all, in their usual proportions;
-        a subset keeps the proportions among its members).
+        Names of built-in classes (default: the three of ``CLASSES`` in their
+        usual proportions; a subset keeps the proportions among its members;
+        ``pulsating`` only when named, see ``OPTIONAL_CLASSES``).
     overwrite : bool, default False
 
     Returns
@@ -94,8 +95,7 @@ def simulate_survey_file(path, *, objects: int = 1000, points=(150, 400), days: 
     names, counts = np.unique(campaign.classes, return_counts=True)
     return Simulated(path, "survey", len(campaign), int(sum(t.size for t in campaign.times)),
                      {str(k): int(v) for k, v in zip(names, counts)},
-                     {"metadata": "class, kernel, true_amplitude, true_scale, true_mean, "
-                                  "true_excess_noise, n_outliers per object"})
+                     {"metadata": ", ".join(k for k in campaign.meta()) + " per object"})
 
 
 def simulate_series_file(path, n: int, *, days: float = 150.0, amplitude: float = 0.2,
