@@ -68,7 +68,7 @@ from .blocked_transition import (
     fill_transition_grad,
     step_sizes,
 )
-from .lanes import vadd, vfma, vload, vmul, vsplat, vstore, vsub
+from .lanes import vadd, vfma, vload, vmax0, vmul, vrecip_pos, vsplat, vstore, vsub
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -729,9 +729,26 @@ def gen_predict(code, tr):
         code("fill_decay(cnt, rate0, work)")
     else:
         code(f"fill_transition(cnt, trans, work, ROW_A + {dd})")
-    code("for b in range(cnt):")
+    predict_vector_setup(code, tr)
+    code("b = 0", "while b < cnt:")
     code.indent()
-    code("i = lo + b", "k = idx[i]", "if k < 0:")
+    code(
+        "i = lo + b",
+        "if b + 4 <= cnt:",
+        "    k0 = idx[i]",
+        "    k1 = idx[i + 1]",
+        "    k2 = idx[i + 2]",
+        "    k3 = idx[i + 3]",
+        "    if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:",
+    )
+    code.indent()
+    code.indent()
+    predict_vector_body(code, tr)
+    code("b += 4", "continue")
+    code.dedent()
+    code.dedent()
+    code("# one query at a time: chunk tails, and queries outside the data span")
+    code("k = idx[i]", "if k < 0:")
     code.indent()
     for a in range(d):
         code(f"sm{a} = 0.0")
@@ -784,10 +801,107 @@ def gen_predict(code, tr):
         code(f"y{a} = " + dot([f"{sym('dp', a, c)} * gg{c}0" for c in range(d)]))
     code("var += " + dot([f"gg{a}0 * y{a}" for a in range(d)]))
     code.dedent()
-    code("out_mean[i] = mean", "out_var[i] = max(var, 0.0)")
+    code("out_mean[i] = mean", "out_var[i] = max(var, 0.0)", "b += 1")
     code.dedent()
     code.dedent()
     code.dedent()
+
+
+def vdot(pairs, add=None):
+    return vsum(pairs, add)
+
+
+def predict_vector_setup(code, tr):
+    """Per chunk: row views and broadcast constants of the four-query vector path."""
+    d = tr.d
+    dd = d * d
+    for a, b in upper(d):
+        code(f"{sym('vpf', a, b)} = vsplat({sym('pf', a, b)})")
+    if tr.single:
+        for k in range(d):
+            for a in range(d):
+                for c in range(d):
+                    code(f"vc{k}{a}{c} = vsplat(c{k}{a}{c})")
+        code("re1 = work[ROW_A + 1]", "re2 = work[ROW_E]")
+        if d > 1:
+            code("rh1 = work[ROW_A]", "rh2 = work[ROW_DT]")
+    else:
+        for e in range(dd):
+            code(f"ra{e} = work[ROW_A + {e}]", f"rb{e} = work[ROW_A + {dd + e}]")
+
+
+def predict_vector_body(code, tr):
+    """Four interior queries (``0 <= k < n - 1``) at once, as 4-tuples (``lanes.py``)."""
+    d = tr.d
+    ks = ["k0", "k1", "k2", "k3"]
+
+    def gather(expr):  # expr with {k} for the data index
+        return "(" + ", ".join(expr.format(k=k) for k in ks) + ")"
+
+    def transition(name, h, e, rows):
+        for a in range(d):
+            for c in range(d):
+                if tr.single:
+                    poly = f"vc{d - 1}{a}{c}"
+                    for k in range(d - 2, -1, -1):
+                        poly = f"vfma({h}, {poly}, vc{k}{a}{c})"
+                    code(f"{name}{a}{c} = vmul({e}, {poly})")
+                else:
+                    code(f"{name}{a}{c} = vload({rows}{a * d + c}, b)")
+
+    if tr.single:
+        code("e1 = vload(re1, b)", "e2 = vload(re2, b)")
+        if d > 1:
+            code("h1 = vload(rh1, b)", "h2 = vload(rh2, b)")
+    transition("a", "h1", "e1", "ra")
+    for a, b in upper(d):
+        code(f"{sym('qq', a, b)} = vsub({gather(f'Pf[{{k}}, {a}, {b}]')}, {sym('vpf', a, b)})")
+    for a in range(d):
+        code(f"fm{a} = {gather(f'mf[{{k}}, {a}]')}")
+    for a in range(d):
+        for c in range(d):
+            code(f"w{a}{c} = " + vdot([(f"a{a}{k}", sym("qq", k, c)) for k in range(d)]))
+    for a, b in upper(d):
+        code(f"{sym('sp', a, b)} = "
+             + vdot([(f"w{a}{c}", f"a{b}{c}") for c in range(d)], sym("vpf", a, b)))
+    for a in range(d):
+        code(f"sm{a} = " + vdot([(f"a{a}{c}", f"fm{c}") for c in range(d)]))
+    transition("e", "h2", "e2", "rb")
+    for a, b in upper(d):
+        code(f"{sym('qq', a, b)} = vsub({sym('sp', a, b)}, {sym('vpf', a, b)})")
+    for a in range(d):
+        for c in range(d):
+            code(f"w{a}{c} = " + vdot([(f"e{a}{k}", sym("qq", k, c)) for k in range(d)]))
+    for a, b in upper(d):
+        code(f"{sym('pp', a, b)} = "
+             + vdot([(f"w{a}{c}", f"e{b}{c}") for c in range(d)], sym("vpf", a, b)))
+    # LDL^T of pp and the solve pp g = A2 P*[:, 0]
+    for j in range(d):
+        sub = vdot([(f"l{j}{k}", f"vmul(l{j}{k}, dg{k})") for k in range(j)])
+        code(f"dg{j} = " + (f"vsub({sym('pp', j, j)}, {sub})" if j else sym("pp", 0, 0)))
+        code(f"iv{j} = vrecip_pos(dg{j})")
+        for i in range(j + 1, d):
+            sub = vdot([(f"l{i}{k}", f"vmul(l{j}{k}, dg{k})") for k in range(j)])
+            num = f"vsub({sym('pp', i, j)}, {sub})" if j else sym("pp", i, j)
+            code(f"l{i}{j} = vmul({num}, iv{j})")
+    for i in range(d):
+        rhs = vdot([(f"e{i}{c}", sym("sp", c, 0)) for c in range(d)])
+        sub = vdot([(f"l{i}{k}", f"z{k}") for k in range(i)])
+        code(f"z{i} = " + (f"vsub({rhs}, {sub})" if i else rhs))
+    for i in range(d - 1, -1, -1):
+        sub = vdot([(f"l{k}{i}", f"g{k}") for k in range(i + 1, d)])
+        scaled = f"vmul(z{i}, iv{i})"
+        code(f"g{i} = " + (f"vsub({scaled}, {sub})" if i < d - 1 else scaled))
+    for a in range(d):
+        nxt = gather(f"ms[{{k}} + 1, {a}]")
+        code(f"dd{a} = vsub({nxt}, " + vdot([(f"e{a}{c}", f"sm{c}") for c in range(d)]) + ")")
+    code("vmean = " + vdot([(f"g{a}", f"dd{a}") for a in range(d)], "sm0"))
+    for a, b in upper(d):
+        code(f"{sym('dp', a, b)} = vsub({gather(f'Ps[{{k}} + 1, {a}, {b}]')}, {sym('pp', a, b)})")
+    for a in range(d):
+        code(f"y{a} = " + vdot([(sym("dp", a, c), f"g{c}") for c in range(d)]))
+    code("vvar = " + vdot([(f"g{a}", f"y{a}") for a in range(d)], "sp00"))
+    code("vstore(out_mean, i, vmean)", "vstore(out_var, i, vmax0(vvar))")
 
 
 GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_smooth, gen_predict)

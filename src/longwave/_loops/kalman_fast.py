@@ -36,7 +36,7 @@ from .blocked_transition import (
     fill_transition_grad,
     step_sizes,
 )
-from .lanes import vadd, vfma, vload, vmul, vsplat, vstore, vsub
+from .lanes import vadd, vfma, vload, vmax0, vmul, vrecip_pos, vsplat, vstore, vsub
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -2957,8 +2957,45 @@ def predict_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_decay(cnt, rate0, work)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        vc000 = vsplat(c000)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    a00 = vmul(e1, vc000)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    w00 = vmul(a00, qq00)
+                    sp00 = vfma(w00, a00, vpf00)
+                    sm0 = vmul(a00, fm0)
+                    e00 = vmul(e2, vc000)
+                    qq00 = vsub(sp00, vpf00)
+                    w00 = vmul(e00, qq00)
+                    pp00 = vfma(w00, e00, vpf00)
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    z0 = vmul(e00, sp00)
+                    g0 = vmul(z0, iv0)
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
+                    vmean = vfma(g0, dd0, sm0)
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    y0 = vmul(dp00, g0)
+                    vvar = vfma(g0, y0, sp00)
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -2995,6 +3032,7 @@ def predict_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 var += gg00 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
@@ -3040,8 +3078,89 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_decay(cnt, rate0, work)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf11 = vsplat(pf11)
+        vc000 = vsplat(c000)
+        vc001 = vsplat(c001)
+        vc010 = vsplat(c010)
+        vc011 = vsplat(c011)
+        vc100 = vsplat(c100)
+        vc101 = vsplat(c101)
+        vc110 = vsplat(c110)
+        vc111 = vsplat(c111)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        rh1 = work[ROW_A]
+        rh2 = work[ROW_DT]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    h1 = vload(rh1, b)
+                    h2 = vload(rh2, b)
+                    a00 = vmul(e1, vfma(h1, vc100, vc000))
+                    a01 = vmul(e1, vfma(h1, vc101, vc001))
+                    a10 = vmul(e1, vfma(h1, vc110, vc010))
+                    a11 = vmul(e1, vfma(h1, vc111, vc011))
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    w00 = vfma(a00, qq00, vmul(a01, qq01))
+                    w01 = vfma(a00, qq01, vmul(a01, qq11))
+                    w10 = vfma(a10, qq00, vmul(a11, qq01))
+                    w11 = vfma(a10, qq01, vmul(a11, qq11))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
+                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
+                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    e00 = vmul(e2, vfma(h2, vc100, vc000))
+                    e01 = vmul(e2, vfma(h2, vc101, vc001))
+                    e10 = vmul(e2, vfma(h2, vc110, vc010))
+                    e11 = vmul(e2, vfma(h2, vc111, vc011))
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq11 = vsub(sp11, vpf11)
+                    w00 = vfma(e00, qq00, vmul(e01, qq01))
+                    w01 = vfma(e00, qq01, vmul(e01, qq11))
+                    w10 = vfma(e10, qq00, vmul(e11, qq01))
+                    w11 = vfma(e10, qq01, vmul(e11, qq11))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    z0 = vfma(e00, sp00, vmul(e01, sp01))
+                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
+                    g1 = vmul(z1, iv1)
+                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    y0 = vfma(dp00, g0, vmul(dp01, g1))
+                    y1 = vfma(dp01, g0, vmul(dp11, g1))
+                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -3117,6 +3236,7 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 var += gg00 * y0 + gg10 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
@@ -3184,8 +3304,156 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_decay(cnt, rate0, work)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf02 = vsplat(pf02)
+        vpf11 = vsplat(pf11)
+        vpf12 = vsplat(pf12)
+        vpf22 = vsplat(pf22)
+        vc000 = vsplat(c000)
+        vc001 = vsplat(c001)
+        vc002 = vsplat(c002)
+        vc010 = vsplat(c010)
+        vc011 = vsplat(c011)
+        vc012 = vsplat(c012)
+        vc020 = vsplat(c020)
+        vc021 = vsplat(c021)
+        vc022 = vsplat(c022)
+        vc100 = vsplat(c100)
+        vc101 = vsplat(c101)
+        vc102 = vsplat(c102)
+        vc110 = vsplat(c110)
+        vc111 = vsplat(c111)
+        vc112 = vsplat(c112)
+        vc120 = vsplat(c120)
+        vc121 = vsplat(c121)
+        vc122 = vsplat(c122)
+        vc200 = vsplat(c200)
+        vc201 = vsplat(c201)
+        vc202 = vsplat(c202)
+        vc210 = vsplat(c210)
+        vc211 = vsplat(c211)
+        vc212 = vsplat(c212)
+        vc220 = vsplat(c220)
+        vc221 = vsplat(c221)
+        vc222 = vsplat(c222)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        rh1 = work[ROW_A]
+        rh2 = work[ROW_DT]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    h1 = vload(rh1, b)
+                    h2 = vload(rh2, b)
+                    a00 = vmul(e1, vfma(h1, vfma(h1, vc200, vc100), vc000))
+                    a01 = vmul(e1, vfma(h1, vfma(h1, vc201, vc101), vc001))
+                    a02 = vmul(e1, vfma(h1, vfma(h1, vc202, vc102), vc002))
+                    a10 = vmul(e1, vfma(h1, vfma(h1, vc210, vc110), vc010))
+                    a11 = vmul(e1, vfma(h1, vfma(h1, vc211, vc111), vc011))
+                    a12 = vmul(e1, vfma(h1, vfma(h1, vc212, vc112), vc012))
+                    a20 = vmul(e1, vfma(h1, vfma(h1, vc220, vc120), vc020))
+                    a21 = vmul(e1, vfma(h1, vfma(h1, vc221, vc121), vc021))
+                    a22 = vmul(e1, vfma(h1, vfma(h1, vc222, vc122), vc022))
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq02 = vsub((Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2]), vpf02)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    qq12 = vsub((Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2]), vpf12)
+                    qq22 = vsub((Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2]), vpf22)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
+                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
+                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
+                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
+                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
+                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
+                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
+                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
+                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
+                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
+                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
+                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
+                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
+                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
+                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    e00 = vmul(e2, vfma(h2, vfma(h2, vc200, vc100), vc000))
+                    e01 = vmul(e2, vfma(h2, vfma(h2, vc201, vc101), vc001))
+                    e02 = vmul(e2, vfma(h2, vfma(h2, vc202, vc102), vc002))
+                    e10 = vmul(e2, vfma(h2, vfma(h2, vc210, vc110), vc010))
+                    e11 = vmul(e2, vfma(h2, vfma(h2, vc211, vc111), vc011))
+                    e12 = vmul(e2, vfma(h2, vfma(h2, vc212, vc112), vc012))
+                    e20 = vmul(e2, vfma(h2, vfma(h2, vc220, vc120), vc020))
+                    e21 = vmul(e2, vfma(h2, vfma(h2, vc221, vc121), vc021))
+                    e22 = vmul(e2, vfma(h2, vfma(h2, vc222, vc122), vc022))
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq02 = vsub(sp02, vpf02)
+                    qq11 = vsub(sp11, vpf11)
+                    qq12 = vsub(sp12, vpf12)
+                    qq22 = vsub(sp22, vpf22)
+                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
+                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
+                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
+                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
+                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
+                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
+                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
+                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
+                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
+                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
+                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
+                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    l20 = vmul(pp02, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
+                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
+                    iv2 = vrecip_pos(dg2)
+                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
+                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
+                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
+                    g2 = vmul(z2, iv2)
+                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
+                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
+                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
+                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
+                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
+                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
+                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
+                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -3315,6 +3583,7 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 var += gg00 * y0 + gg10 * y1 + gg20 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
@@ -3346,8 +3615,42 @@ def predict_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_transition(cnt, trans, work, ROW_A + 1)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 1]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    w00 = vmul(a00, qq00)
+                    sp00 = vfma(w00, a00, vpf00)
+                    sm0 = vmul(a00, fm0)
+                    e00 = vload(rb0, b)
+                    qq00 = vsub(sp00, vpf00)
+                    w00 = vmul(e00, qq00)
+                    pp00 = vfma(w00, e00, vpf00)
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    z0 = vmul(e00, sp00)
+                    g0 = vmul(z0, iv0)
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
+                    vmean = vfma(g0, dd0, sm0)
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    y0 = vmul(dp00, g0)
+                    vvar = vfma(g0, y0, sp00)
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -3382,6 +3685,7 @@ def predict_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 var += gg00 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
@@ -3415,8 +3719,81 @@ def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_transition(cnt, trans, work, ROW_A + 4)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf11 = vsplat(pf11)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 4]
+        ra1 = work[ROW_A + 1]
+        rb1 = work[ROW_A + 5]
+        ra2 = work[ROW_A + 2]
+        rb2 = work[ROW_A + 6]
+        ra3 = work[ROW_A + 3]
+        rb3 = work[ROW_A + 7]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    a01 = vload(ra1, b)
+                    a10 = vload(ra2, b)
+                    a11 = vload(ra3, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    w00 = vfma(a00, qq00, vmul(a01, qq01))
+                    w01 = vfma(a00, qq01, vmul(a01, qq11))
+                    w10 = vfma(a10, qq00, vmul(a11, qq01))
+                    w11 = vfma(a10, qq01, vmul(a11, qq11))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
+                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
+                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    e00 = vload(rb0, b)
+                    e01 = vload(rb1, b)
+                    e10 = vload(rb2, b)
+                    e11 = vload(rb3, b)
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq11 = vsub(sp11, vpf11)
+                    w00 = vfma(e00, qq00, vmul(e01, qq01))
+                    w01 = vfma(e00, qq01, vmul(e01, qq11))
+                    w10 = vfma(e10, qq00, vmul(e11, qq01))
+                    w11 = vfma(e10, qq01, vmul(e11, qq11))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    z0 = vfma(e00, sp00, vmul(e01, sp01))
+                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
+                    g1 = vmul(z1, iv1)
+                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    y0 = vfma(dp00, g0, vmul(dp01, g1))
+                    y1 = vfma(dp01, g0, vmul(dp11, g1))
+                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -3488,6 +3865,7 @@ def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 var += gg00 * y0 + gg10 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
@@ -3524,8 +3902,139 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
             k = idx[lo + b]
             dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
         fill_transition(cnt, trans, work, ROW_A + 9)
-        for b in range(cnt):
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf02 = vsplat(pf02)
+        vpf11 = vsplat(pf11)
+        vpf12 = vsplat(pf12)
+        vpf22 = vsplat(pf22)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 9]
+        ra1 = work[ROW_A + 1]
+        rb1 = work[ROW_A + 10]
+        ra2 = work[ROW_A + 2]
+        rb2 = work[ROW_A + 11]
+        ra3 = work[ROW_A + 3]
+        rb3 = work[ROW_A + 12]
+        ra4 = work[ROW_A + 4]
+        rb4 = work[ROW_A + 13]
+        ra5 = work[ROW_A + 5]
+        rb5 = work[ROW_A + 14]
+        ra6 = work[ROW_A + 6]
+        rb6 = work[ROW_A + 15]
+        ra7 = work[ROW_A + 7]
+        rb7 = work[ROW_A + 16]
+        ra8 = work[ROW_A + 8]
+        rb8 = work[ROW_A + 17]
+        b = 0
+        while b < cnt:
             i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    a01 = vload(ra1, b)
+                    a02 = vload(ra2, b)
+                    a10 = vload(ra3, b)
+                    a11 = vload(ra4, b)
+                    a12 = vload(ra5, b)
+                    a20 = vload(ra6, b)
+                    a21 = vload(ra7, b)
+                    a22 = vload(ra8, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq02 = vsub((Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2]), vpf02)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    qq12 = vsub((Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2]), vpf12)
+                    qq22 = vsub((Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2]), vpf22)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
+                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
+                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
+                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
+                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
+                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
+                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
+                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
+                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
+                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
+                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
+                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
+                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
+                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
+                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    e00 = vload(rb0, b)
+                    e01 = vload(rb1, b)
+                    e02 = vload(rb2, b)
+                    e10 = vload(rb3, b)
+                    e11 = vload(rb4, b)
+                    e12 = vload(rb5, b)
+                    e20 = vload(rb6, b)
+                    e21 = vload(rb7, b)
+                    e22 = vload(rb8, b)
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq02 = vsub(sp02, vpf02)
+                    qq11 = vsub(sp11, vpf11)
+                    qq12 = vsub(sp12, vpf12)
+                    qq22 = vsub(sp22, vpf22)
+                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
+                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
+                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
+                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
+                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
+                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
+                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
+                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
+                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
+                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
+                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
+                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    l20 = vmul(pp02, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
+                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
+                    iv2 = vrecip_pos(dg2)
+                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
+                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
+                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
+                    g2 = vmul(z2, iv2)
+                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
+                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
+                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
+                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
+                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
+                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
+                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
+                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
             if k < 0:
                 sm0 = 0.0
@@ -3651,3 +4160,4 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 var += gg00 * y0 + gg10 * y1 + gg20 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
+            b += 1

@@ -14,6 +14,8 @@ Functions (all elementwise on 4-tuples of float64):
 - ``vsplat(x)``: ``(x, x, x, x)``;
 - ``vadd(a, b)``, ``vsub(a, b)``, ``vmul(a, b)``, ``vfma(a, b, c) = a * b + c``
   (fused, one rounding);
+- ``vrecip_pos(a)``: ``1 / a`` where ``a > 0``, else 0 (a pivot without
+  variance gets no weight); ``vmax0(a)``: ``max(a, 0)``;
 - ``vload(arr, i)``: ``arr[i:i + 4]`` of a C-contiguous float64 array;
   ``vstore(arr, i, v)`` writes it back. No bounds checks.
 """
@@ -80,6 +82,37 @@ def vfma(typingctx, a, b, c):
         return _to_tuple(context, builder, builder.call(fma, [x, y, z]))
 
     return VEC(VEC, VEC, VEC), codegen
+
+
+def _unary(build):
+    def typer(typingctx, a):
+        if not _is_vec(a):
+            return None
+
+        def codegen(context, builder, sig, args):
+            x = _to_vector(builder, args[0])
+            zero = ir.Constant(_LLVEC, [0.0] * WIDTH)
+            return _to_tuple(context, builder, build(builder, x, zero))
+
+        return VEC(VEC), codegen
+
+    return typer
+
+
+def _recip_pos(builder, x, zero):
+    one = ir.Constant(_LLVEC, [1.0] * WIDTH)
+    positive = builder.fcmp_ordered(">", x, zero)
+    return builder.select(positive, builder.fdiv(one, x), zero)
+
+
+def _max0(builder, x, zero):
+    # NaN stays NaN (unordered compare keeps x)
+    negative = builder.fcmp_ordered("<", x, zero)
+    return builder.select(negative, zero, x)
+
+
+vrecip_pos = intrinsic(_unary(_recip_pos))
+vmax0 = intrinsic(_unary(_max0))
 
 
 @intrinsic

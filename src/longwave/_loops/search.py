@@ -32,28 +32,42 @@ def _search_each(t, tq, idx):
         idx[i] = _last_at_or_before(t, tq[i])
 
 
+_MERGE_CHUNK = 32768
+
+
+@njit(cache=True, parallel=True)
+def _merge_chunks(t, tq, idx):
+    n = t.size
+    n_chunks = (tq.size + _MERGE_CHUNK - 1) // _MERGE_CHUNK
+    for c in prange(n_chunks):
+        lo = c * _MERGE_CHUNK
+        hi = min(lo + _MERGE_CHUNK, tq.size)
+        k = _last_at_or_before(t, tq[lo]) + 1  # t[:k] <= current query
+        for i in range(lo, hi):
+            x = tq[i]
+            steps = 0
+            while k < n and t[k] <= x and steps < 8:
+                k += 1
+                steps += 1
+            if k < n and t[k] <= x:
+                k = _last_at_or_before(t, x, k) + 1
+            idx[i] = k - 1
+
+
 @njit(cache=True)
 def locate(t, tq, idx):
     """``idx[i]`` = index of the last ``t <= tq[i]`` (-1 before the first).
 
     Equals ``np.searchsorted(t, tq, side="right") - 1`` for sorted ``t``. Sorted
-    queries (the usual grid) are merged in one sweep, stepping a few data
-    points at a time and jumping by binary search over longer stretches, so a
-    few queries in a long series stay cheap; otherwise each query is a binary
-    search, in parallel. Returns whether ``tq`` was sorted.
+    queries (the usual grid) are merged, in parallel chunks that each start by
+    one binary search, stepping a few data points at a time and jumping by
+    binary search over longer stretches, so a few queries in a long series stay
+    cheap; otherwise each query is a binary search, in parallel. Returns
+    whether ``tq`` was sorted.
     """
     if not _is_sorted(tq):
         _search_each(t, tq, idx)
         return False
-    n = t.size
-    k = 0  # t[:k] <= current query
-    for i in range(tq.size):
-        x = tq[i]
-        steps = 0
-        while k < n and t[k] <= x and steps < 8:
-            k += 1
-            steps += 1
-        if k < n and t[k] <= x:
-            k = _last_at_or_before(t, x, k) + 1
-        idx[i] = k - 1
+    if tq.size:
+        _merge_chunks(t, tq, idx)
     return True
