@@ -26,12 +26,14 @@ STRING = h5py.string_dtype("utf-8")
 # doubles) keep per-chunk overhead small for long arrays while a batch read
 # touches few chunks; per-object columns use smaller chunks because a result
 # batch is ~100 rows. shuffle+gzip(4) roughly halves smooth float series and
-# decompresses at several hundred MB/s; prediction grids use lzf, which is
-# cheaper to write and matters when a grid holds 1e8 points.
+# decompresses at several hundred MB/s. Prediction grids are not compressed:
+# lzf saved nothing on posterior means and standard deviations (1.60 GB for a
+# 1e8-point grid either way) and made writing them 3x slower than predicting
+# them (bench/bench_storage.py).
 _KINDS = {
     "points": {"chunk": 65536, "compression": "gzip", "compression_opts": 4, "shuffle": True},
     "column": {"chunk": 4096, "compression": "gzip", "compression_opts": 4, "shuffle": True},
-    "grid": {"chunk": 65536, "compression": "lzf", "compression_opts": None, "shuffle": False},
+    "grid": {"chunk": 65536, "compression": None, "compression_opts": None, "shuffle": False},
 }
 
 FLOAT_KINDS = ("float32", "float64")
@@ -82,7 +84,8 @@ def create_dataset(group, name, dtype, *, kind, data=None, chunk=None):
         raise ValueError(f"kind must be one of {', '.join(_KINDS)}, got {kind!r}") from exc
     size = 0 if data is None else len(data)
     filters = {}
-    if dtype is not STRING:  # filters on variable-length strings compress only pointers
+    # Filters on variable-length strings would compress only the heap pointers.
+    if dtype is not STRING and spec["compression"] is not None:
         filters = {"compression": spec["compression"], "shuffle": spec["shuffle"]}
         if spec["compression_opts"] is not None:
             filters["compression_opts"] = spec["compression_opts"]
