@@ -207,3 +207,24 @@ def test_unreachable_scheduler_explains_the_fix(survey, tmp_path):
         run_survey(survey[0], tmp_path / "r.h5", model=MODEL, progress=False,
                    scheduler=f"tcp://127.0.0.1:{free_port()}", connect_timeout=2.0)
     assert not (tmp_path / "r.h5").exists()
+
+
+def test_a_cluster_that_cannot_run_tasks_stops_the_run(tmp_path):
+    from longwave.survey.runner import ClusterError
+
+    # Workers whose task function is a broken stand-in (put in place by a
+    # worker preload): every task raises, which must stop the run, not be
+    # recorded as a survey of failed objects.
+    preload = tmp_path / "break_pipeline.py"
+    preload.write_text("import longwave.survey.pipeline as pipeline\n\n\n"
+                       "def fit_batch(*args, **kwargs):\n"
+                       "    raise ImportError('stand-in: this worker cannot fit')\n\n\n"
+                       "pipeline.fit_batch = fit_batch\n")
+    path = tmp_path / "tiny.h5"
+    write_test_survey(path, 4, 20, malformed=False)
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
+                      dashboard_address=None, preload=[str(preload)]) as lc:
+        with pytest.raises(ClusterError, match="before any succeeded"):
+            run_survey(path, tmp_path / "r.h5", model=MODEL, scheduler=lc.scheduler_address,
+                       batch_size=2, retries=0, progress=False, quiet=True)
+    assert len(ResultStore.read(tmp_path / "r.h5")) == 0

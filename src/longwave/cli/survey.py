@@ -117,16 +117,22 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ..survey import run_survey
+    from ..survey.runner import ClusterError
 
-    summary = run_survey(
-        args.input, args.out, model=model_from_args(args), method=args.method,
-        clip=args.clip, max_clip_iter=args.max_clip_iter, grid=grid_from_args(args),
-        inducing=args.inducing, workers=args.workers, scheduler=args.scheduler,
-        resume=args.resume, overwrite=args.overwrite, batch_size=args.batch_size,
-        in_flight=args.in_flight, retries=args.retries, columns=columns_from_args(args),
-        progress=not args.quiet, quiet=args.quiet, flush_seconds=args.flush_seconds)
+    try:
+        summary = run_survey(
+            args.input, args.out, model=model_from_args(args), method=args.method,
+            clip=args.clip, max_clip_iter=args.max_clip_iter, grid=grid_from_args(args),
+            inducing=args.inducing, workers=args.workers, scheduler=args.scheduler,
+            resume=args.resume, overwrite=args.overwrite, batch_size=args.batch_size,
+            in_flight=args.in_flight, retries=args.retries, columns=columns_from_args(args),
+            progress=not args.quiet, quiet=args.quiet, flush_seconds=args.flush_seconds)
+    except ClusterError as exc:
+        print(f"longwave survey: error: {exc}", file=sys.stderr)
+        return 2
     if args.json:
         print(summary.to_json())
     elif not args.quiet:
         print(summary.format(), file=sys.stdout)
     return 0
+

@@ -15,7 +15,10 @@ Execution
 * A lost worker is survived: the scheduler reruns its tasks elsewhere
   (``retries`` covers exceptions inside a task). A batch that still fails is
   split and its objects resubmitted one by one, so only the object that
-  kills workers is recorded as ``failed``.
+  kills workers is recorded as ``failed``. If tasks fail before any has
+  succeeded, the run stops with :class:`ClusterError` instead: that is a
+  broken cluster, and recording every object as failed would make a resume
+  skip them all.
 * Every id is written once: ids already stored (``resume``) are not read
   again, and a result for an id already written is dropped and counted.
 """
@@ -27,7 +30,6 @@ import os
 import sys
 import time
 from contextlib import ExitStack
-from itertools import islice
 
 from distributed import Client, LocalCluster, as_completed
 from tqdm import tqdm
@@ -73,34 +75,53 @@ def _run_serial(batches, config, writer) -> None:
         writer.consume(fit_batch(batch, config))
 
 
+class ClusterError(RuntimeError):
+    """Tasks fail on the cluster before any has succeeded: a setup problem, not bad data."""
+
+
 def _run_distributed(client, batches, config, writer, in_flight: int, retries: int) -> None:
     pending = {}  # future -> its batch, kept for resubmission if the task fails
     queue = as_completed()
+    succeeded = False
 
     def submit(batch):
         future = client.submit(fit_batch, batch, config, pure=False, retries=retries)
         pending[future] = batch
         queue.add(future)
 
-    for batch in islice(batches, in_flight):
-        submit(batch)
+    def top_up():
+        # Read the next batches only while fewer than in_flight tasks are out.
+        while len(pending) < in_flight:
+            following = next(batches, None)
+            if following is None:
+                return
+            submit(following)
+
+    top_up()
     try:
         for future in queue:
             batch = pending.pop(future)
             try:
                 fits = future.result()
+                succeeded = True
             except Exception as exc:  # worker lost too often, or a task error
                 if len(batch) > 1:
                     for obj in batch:  # isolate the culprit
                         submit([obj])
                     continue
+                if not succeeded:
+                    # Every object failing alike (workers that cannot import
+                    # longwave, say) must not be recorded as a survey of failures.
+                    raise ClusterError(
+                        f"tasks fail on the cluster before any succeeded ({type(exc).__name__}: "
+                        f"{exc}); check that every worker runs the same environment as this "
+                        "client (python -c 'import longwave.survey' on a worker host)"
+                    ) from exc
                 fits = _failed(batch, exc)
             finally:
                 future.release()
             writer.consume(fits)
-            following = next(batches, None)
-            if following is not None:
-                submit(following)
+            top_up()
     except BaseException:
         client.cancel(list(pending))
         raise
