@@ -194,8 +194,9 @@ def fitc_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
 def fitc_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     """Fill ``grad, grad_z, mat (sum delta a a^T), sum_dkd, sum_dnoise, sum_dresid``.
 
-    With ``alpha = (Q + D)^-1 r`` and ``delta_i = dF/dD_i`` (derivation in
-    ``sparse_objectives.fitc``): ``alpha_i = (r_i - a_i^T g) / D_i``,
+    With ``alpha = (Q + D)^-1 r`` and ``delta_i = dF/dD_i`` (chain rule through
+    ``Q`` and ``D``; see ``sparse_objectives.fitc_kuu_adjoint``):
+    ``alpha_i = (r_i - a_i^T g) / D_i``,
     ``delta_i = (alpha_i^2 - 1/D_i + a_i^T B^-1 a_i / D_i^2) / 2`` and
     ``dF/dk_i = Linv^T (g alpha_i - B^-1 a_i / D_i - 2 delta_i a_i)``.
     """
