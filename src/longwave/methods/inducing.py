@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 DEFAULT_CAP = 50_000
+GREEDY_CAP = 20_000  # greedy keeps an (m, candidates) factor: 160 MB at m = 1024
 
 
 def candidate_times(source, cap: int = DEFAULT_CAP, chunk: int = 1 << 18) -> np.ndarray:
@@ -111,7 +112,8 @@ def place(source, m: int, placement: str = "quantile", kernel=None, seed: int = 
     seed : int, default 0
         Seed of k-means.
     cap : int, default 50000
-        Largest candidate set read from the data.
+        Largest candidate set read from the data ('greedy' uses at most 20000:
+        it keeps an (m, candidates) factor).
 
     Returns
     -------
@@ -120,5 +122,7 @@ def place(source, m: int, placement: str = "quantile", kernel=None, seed: int = 
     from .sparse_data import ChunkedSeries
 
     fn = resolve_placement(placement)
+    if placement == "greedy":
+        cap = min(cap, GREEDY_CAP)
     return np.asarray(fn(candidate_times(ChunkedSeries.of(source), cap), int(m), kernel, seed),
                       dtype=float)
