@@ -28,7 +28,7 @@ from longwave.simulate import simulate_series
 
 def main(out_dir: Path) -> None:
     rng = np.random.default_rng(5)
-    t = night_cadence(800, years=0.4, season_fraction=1.0, rng=rng)
+    t = night_cadence(600, years=0.4, season_fraction=1.0, rng=rng)
     err = rng.uniform(0.01, 0.02, t.size)
     # In a product only one amplitude is free: the periodic factor's is fixed at 1.
     unit = lw.Param(1.0, fixed=True)
@@ -41,7 +41,7 @@ def main(out_dir: Path) -> None:
                      mean=float(np.mean(series.y)),
                      excess_noise=0.01)
     settings = parse_methods(["exact", "kalman", "vfe:m=16,64", "fitc:m=64"])
-    result = run_benchmark(series, start, settings, reference_max_n=800, fit=False,
+    result = run_benchmark(series, start, settings, reference_max_n=600, fit=False, scaling_steps=2,
                            seed=0, progress=print)
     files = write_report(result, out_dir, title=f"rotating source: {series.n} points")
     print(files["summary"].read_text())
