@@ -34,7 +34,9 @@ def main(argv=None) -> int:
         return 2
     try:
         return int(args.func(args) or 0)
-    except (ValueError, FileNotFoundError, FileExistsError) as exc:
+    # Errors of use (bad input, files, a store locked by another writer, a
+    # cluster that cannot run tasks) get one clear line, not a traceback.
+    except (ValueError, OSError, RuntimeError) as exc:
         print(f"longwave {args.command}: error: {exc}", file=sys.stderr)
         return 2
 
