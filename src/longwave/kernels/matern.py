@@ -20,6 +20,7 @@ follow from those powers (``d lam / d log(scale) = -lam``).
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -30,8 +31,13 @@ from .base import Primitive
 from .statespace import StateSpace
 
 
+@functools.cache
 def _unit_matrices(d: int):
-    """F, N and Pinf at lam = 1, amplitude = 1 for the order with state size d."""
+    """F, N and Pinf at lam = 1, amplitude = 1 for the order with state size d.
+
+    Cached: they are constants of the order, and the Lyapunov solve would
+    otherwise cost about 0.1 ms per likelihood evaluation. Returned read-only.
+    """
     coeffs = [math.comb(d, k) for k in range(d)]  # (s + 1)^d = s^d + sum c_k s^k
     f = np.zeros((d, d))
     f[np.arange(d - 1), np.arange(1, d)] = 1.0
@@ -41,7 +47,10 @@ def _unit_matrices(d: int):
     lvec[-1, 0] = 1.0
     p1 = solve_continuous_lyapunov(f, -lvec @ lvec.T)
     q = 1.0 / p1[0, 0]
-    return f, f + np.eye(d), p1 * q, q
+    out = (f, f + np.eye(d), p1 * q)
+    for arr in out:
+        arr.flags.writeable = False
+    return (*out, q)
 
 
 class _Matern(Primitive):
