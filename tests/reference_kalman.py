@@ -142,14 +142,16 @@ def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens):
 
 # --- smoother and predictor ---------------------------------------------------
 def _rts_step(A, m_f, P_f, m_next, P_next, Pinf):
-    """One RTS step::
+    """One RTS step, in the Joseph-like form the compiled loop uses::
 
-        G = P_f A^T Pp^-1,  m = m_f + G (m_next - A m_f),  P = P_f + G (P_next - Pp) G^T
+        G = P_f A^T Pp^-1,  m = m_f + G (m_next - A m_f),
+        P = (I - G A) P_f (I - G A)^T + G (Q + P_next) G^T   (= P_f + G (P_next - Pp) G^T)
     """
     m_pred, P_pred = _predict(m_f, P_f, A, Pinf)
     G = P_f @ A.T @ np.linalg.inv(P_pred)
     m = m_f + G @ (m_next - m_pred)
-    P = P_f + G @ (P_next - P_pred) @ G.T
+    iga = np.eye(A.shape[0]) - G @ A
+    P = iga @ P_f @ iga.T + G @ (Pinf - A @ Pinf @ A.T + P_next) @ G.T
     return m, 0.5 * (P + P.T)
 
 

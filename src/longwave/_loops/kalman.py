@@ -302,27 +302,30 @@ def _smooth_step(A, m_from, P_from, m_next, P_next, Pinf, out_m, out_P):
 
     ``(m_from, P_from)`` is the distribution at this time given the data up to
     it; ``(m_next, P_next)`` the smoothed distribution a step ``A`` later.
+    The covariance uses the Joseph-like form
+    ``(I - G A) P_from (I - G A)^T + G (Q + P_next) G^T``, algebraically equal
+    to ``P_from + G (P_next - Pp) G^T`` but a sum of PSD terms: with smooth
+    kernels of high state dimension ``Pp`` is ill-conditioned, the gain large,
+    and the difference form lost every digit to cancellation.
     """
     d = A.shape[0]
     Pp = np.empty((d, d))
     work = np.empty((d, d))
     _predict_cov(A, P_from, Pinf, work, Pp)
-    AP = A @ P_from
-    gain_t = np.linalg.solve(Pp, AP)  # G^T = Pp^-1 A P_from
+    gain_t = np.linalg.solve(Pp, A @ P_from)  # G^T = Pp^-1 A P_from
+    gain = gain_t.T.copy()
     diff_m = m_next - A @ m_from
-    diff_P = P_next - Pp
     for a in range(d):
         acc = 0.0
         for c in range(d):
-            acc += gain_t[c, a] * diff_m[c]
+            acc += gain[a, c] * diff_m[c]
         out_m[a] = m_from[a] + acc
-    GD = gain_t.T @ diff_P
+    iga = np.eye(d) - gain @ A
+    driven = Pinf - A @ Pinf @ A.T + P_next
+    total = iga @ P_from @ iga.T + gain @ driven @ gain_t
     for a in range(d):
         for b in range(a, d):
-            acc = 0.0
-            for c in range(d):
-                acc += GD[a, c] * gain_t[c, b]
-            out_P[a, b] = P_from[a, b] + acc
+            out_P[a, b] = 0.5 * (total[a, b] + total[b, a])
             out_P[b, a] = out_P[a, b]
 
 
