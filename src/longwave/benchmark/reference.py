@@ -22,7 +22,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..methods import Method, resolve
-from ..survey.pipeline import EXACT_FORM_TOLERANCE
 
 #: Default largest stretch handed to Exact as the reference.
 DEFAULT_REFERENCE_MAX_N = 5000
@@ -81,17 +80,12 @@ def largest_stretch(t, max_n: int) -> tuple[int, int]:
 
 
 def exact_state_space(kernel) -> bool:
-    """Whether the kernel's state-space form is exact.
+    """Whether the kernel's state-space form is exact (see ``Kernel.has_exact_state_space``).
 
     Approximate forms (a truncated Fourier series, a rational spectral fit)
-    report a positive :meth:`~longwave.kernels.Kernel.covariance_error_bound`;
-    Kalman on them is itself an approximation, so it cannot be the reference.
-    "Exact" uses the survey runner's threshold (``EXACT_FORM_TOLERANCE``, 1e-9
-    of the variance), so both runners call the same kernels exact.
+    make Kalman itself an approximation, so it cannot be the reference.
     """
-    if not kernel.has_state_space:
-        return False
-    return kernel.covariance_error_bound() <= EXACT_FORM_TOLERANCE * kernel.variance()
+    return kernel.has_exact_state_space
 
 
 def choose_reference(model, series, max_n: int = DEFAULT_REFERENCE_MAX_N) -> ReferencePlan:
