@@ -126,3 +126,24 @@ def test_accumulators_add_field_by_field():
     a.n, b.n, b.sum_rr = 4, 5, 1.5
     a.add(b)
     assert a.n == 9 and a.sum_rr == 1.5 and np.all(a.mat == 3.0) and a.grad is None
+
+
+def test_far_blocks_hold_no_subnormal_numbers(rng):
+    # source: IEEE 754 subnormal range below numpy.finfo(float).tiny; a block spanning
+    # thousands of length scales, whitened, must hold none (they slow BLAS severalfold)
+    from longwave import Model
+    from longwave.methods import VFE
+    from longwave.methods.sparse_stats import whiten
+
+    model = Model(Matern32(amplitude=1.0, scale=1.0))
+    z = np.linspace(0, 5000, 64)
+    t = rng.uniform(0, 5000, 4000)
+    setup = VFE(inducing=z)._setup(model, z)
+    block = setup.blocks.block(z, t, np.ones(t.size))
+    tiny = np.finfo(float).tiny
+    for arr in (block, setup.linv, whiten(setup.linv, block.copy())):
+        assert not np.any((arr != 0) & (np.abs(arr) < tiny))
+    # decays below exp(-300) are exact zeros, and nothing above it is lost
+    far = np.abs(z[:, None] - t[None, :]) * np.sqrt(3) > loops.DECAY_CUTOFF
+    assert np.all(block[far] == 0)
+    np.testing.assert_allclose(block[~far], model.kernel(z, t)[~far], rtol=1e-13)

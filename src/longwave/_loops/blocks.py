@@ -31,8 +31,20 @@ CODE_MATERN32 = 2
 CODE_MATERN52 = 3
 
 MAX_PARAMS = 4  # widest factor supported; raise it here if a kernel needs more
+# Decays beyond exp(-300) (5e-131) are written as exact zeros. They change nothing
+# in double precision, but left in, they and their products become subnormal
+# numbers, on which the BLAS products of a block run some 20x slower (measured:
+# a syrk of a (64, 32768) Matérn block spanning 1000 length scales took 94 ms
+# instead of 5 ms). Every decaying branch of primitive() should use _decay().
+DECAY_CUTOFF = 300.0
 SQRT3 = math.sqrt(3.0)
 SQRT5 = math.sqrt(5.0)
+
+
+@njit(cache=True, inline="always")
+def _decay(u):
+    """``exp(-u)``, or exactly 0 beyond ``DECAY_CUTOFF`` (see above)."""
+    return math.exp(-u) if u < DECAY_CUTOFF else 0.0
 
 
 @njit(cache=True, inline="always")
@@ -46,7 +58,7 @@ def primitive(code, tau, par, out, with_grad):
     if code == CODE_MATERN12:
         lam = 1.0 / par[1]
         u = lam * tau
-        e = amp2 * math.exp(-u)
+        e = amp2 * _decay(u)
         out[0] = e
         if with_grad:
             out[1] = -lam * e
@@ -55,7 +67,7 @@ def primitive(code, tau, par, out, with_grad):
     elif code == CODE_MATERN32:
         lam = SQRT3 / par[1]
         u = lam * tau
-        e = amp2 * math.exp(-u)
+        e = amp2 * _decay(u)
         out[0] = (1.0 + u) * e
         if with_grad:
             out[1] = -lam * u * e
@@ -64,7 +76,7 @@ def primitive(code, tau, par, out, with_grad):
     elif code == CODE_MATERN52:
         lam = SQRT5 / par[1]
         u = lam * tau
-        e = amp2 * math.exp(-u)
+        e = amp2 * _decay(u)
         out[0] = (1.0 + u + u * u / 3.0) * e
         if with_grad:
             out[1] = -lam * u * (1.0 + u) * e / 3.0
@@ -221,3 +233,20 @@ def contract_square(z, form, adjoint, with_z, grad_out, gz_out):
             gz_out[a] += 2.0 * dz
     for s in range(grad_out.size):
         grad_out[s] += scratch[s]
+
+
+@njit(cache=True, parallel=True)
+def flush_tiny(arr, cutoff):
+    """Set entries of the (m, c) ``arr`` with ``|x| < cutoff`` to 0, in place (input/output).
+
+    Whitening a block (``Linv @ K``) creates subnormal numbers where far-apart
+    inducing and data times meet, even from a block without any; flushing
+    them (cutoff 1e-150, so that no product of two kept entries underflows)
+    keeps the following BLAS products at full speed (measured: a (64, 16384)
+    syrk took 53 ms before and 8.5 ms after). The error is below
+    ``cutoff / |entry scale|``, far under rounding for any sane data scale.
+    """
+    for a in prange(arr.shape[0]):
+        for i in range(arr.shape[1]):
+            if abs(arr[a, i]) < cutoff:
+                arr[a, i] = 0.0

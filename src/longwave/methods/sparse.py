@@ -18,12 +18,13 @@ import numpy as np
 from scipy.linalg import solve_triangular
 
 from .._config import settings
+from .._loops.blocks import flush_tiny
 from . import sparse_objectives as obj
 from .base import Evaluation, Method, Posterior, require_noise
 from .inducing import place, resolve_placement
 from .sparse_data import ChunkedSeries
 from .sparse_form import block_evaluator
-from .sparse_stats import ChunkContext, run_local
+from .sparse_stats import TINY, ChunkContext, run_local
 
 
 @dataclass(frozen=True)
@@ -159,6 +160,7 @@ class SparseMethod(Method):
         # Fortran order: the per-chunk triangular products (sparse_stats.whiten) take it as is
         linv = np.asfortranarray(
             solve_triangular(chol, np.eye(z.size), lower=True, check_finite=False))
+        flush_tiny(linv, TINY)  # subnormal entries would slow every whitening product
         return _Setup(blocks, z, chol, linv, kd, jit)
 
     def _context(self, model, setup, **extra) -> ChunkContext:
@@ -265,6 +267,7 @@ class VFE(SparseMethod):
         if not gradient:
             return Evaluation(lower, None, extras), None
         g_phi, g_uu, g = obj.vfe_adjoints(solved, s, setup.linv)
+        flush_tiny(g_phi, TINY)  # it multiplies every block of the gradient pass
         ctx = self._context(model, setup, adj_mat=g_phi, adj_vec=g,
                             n_grad=model.n_kernel_params, with_z=with_z)
         acc2 = self._run("grad", ctx, source)
@@ -299,7 +302,9 @@ class FITC(SparseMethod):
         solved, extras = self._value_pass(model, source, setup)
         if not gradient:
             return Evaluation(solved.value, None, extras), None
-        ctx = self._context(model, setup, adj_mat=solved.b_inv(), adj_vec=solved.g_hat,
+        b_inv = solved.b_inv()
+        flush_tiny(b_inv, TINY)  # it multiplies every block of the gradient pass
+        ctx = self._context(model, setup, adj_mat=b_inv, adj_vec=solved.g_hat,
                             n_grad=model.n_kernel_params, with_z=with_z)
         acc2 = self._run("fitc_grad", ctx, source)
         g_uu = obj.fitc_kuu_adjoint(solved, acc2.mat, setup.linv)

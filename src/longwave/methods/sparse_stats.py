@@ -30,6 +30,10 @@ from dataclasses import dataclass, fields
 import numpy as np
 from scipy.linalg import blas
 
+from .._loops.blocks import flush_tiny
+
+TINY = 1e-150  # entries below this are flushed to 0 after whitening (see flush_tiny)
+
 
 @dataclass
 class Accumulator:
@@ -108,14 +112,19 @@ def whiten(linv, k):
 
     A triangular product (BLAS trmm) does half the arithmetic of a general one;
     ``k.T`` is the Fortran-ordered (c, m) view of the C-ordered block, and
-    ``k.T @ Linv^T = (Linv k)^T``, so no copy is made.
+    ``k.T @ Linv^T = (Linv k)^T``, so no copy is made. Subnormal results are
+    flushed to zero, or every later product of the block slows down severalfold.
     """
-    return blas.dtrmm(1.0, linv, k.T, side=1, lower=1, trans_a=1, overwrite_b=1).T
+    out = blas.dtrmm(1.0, linv, k.T, side=1, lower=1, trans_a=1, overwrite_b=1).T
+    flush_tiny(out, TINY)
+    return out
 
 
 def unwhiten(linv, x):
     """``Linv^T @ x`` (m, c) by trmm, overwriting ``x``: ``x^T Linv = (Linv^T x)^T``."""
-    return blas.dtrmm(1.0, linv, x.T, side=1, lower=1, trans_a=0, overwrite_b=1).T
+    out = blas.dtrmm(1.0, linv, x.T, side=1, lower=1, trans_a=0, overwrite_b=1).T
+    flush_tiny(out, TINY)
+    return out
 
 
 def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
