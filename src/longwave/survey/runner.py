@@ -31,6 +31,7 @@ import sys
 import time
 from contextlib import ExitStack
 
+import dask
 from distributed import Client, LocalCluster, as_completed
 from tqdm import tqdm
 
@@ -38,7 +39,7 @@ from .. import methods
 from ..storage import ObjectResult, ResultStore
 from .initial import param_names
 from .inputs import SurveyInput
-from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch
+from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch, warm_up
 from .spec import ModelSpec, parse_spec
 from .summary import SurveySummary, Tally
 
@@ -127,9 +128,25 @@ def _run_distributed(client, batches, config, writer, in_flight: int, retries: i
         raise
 
 
+def embedded_cluster(workers: int, *, quiet: bool = False) -> LocalCluster:
+    """The cluster a survey starts when given no scheduler (use as a context manager).
+
+    ``workers`` single-threaded worker processes bound to 127.0.0.1, BLAS and
+    numba pools at one thread, the statistical profiler off.
+    """
+    # The workers' profiler samples every task's stack every 10 ms, which
+    # costs about 5-10% of a fit's CPU time; nothing here reads it.
+    with dask.config.set({"distributed.worker.profile.enabled": False}):
+        return LocalCluster(
+            n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+            dashboard_address=None, silence_logs=logging.ERROR if quiet else logging.WARNING,
+            # BLAS pools are held at one thread by the nanny's defaults; numba's too.
+            env={"NUMBA_NUM_THREADS": "1"},
+        )
+
+
 def _connect(stack, workers, scheduler, quiet, timeout):
     """A client: to the given scheduler, or to an embedded local cluster."""
-    level = logging.ERROR if quiet else logging.WARNING
     if scheduler:
         try:
             client = stack.enter_context(Client(scheduler, timeout=timeout))
@@ -147,12 +164,7 @@ def _connect(stack, workers, scheduler, quiet, timeout):
                 f"start one with `dask worker {scheduler} --nthreads 1`") from exc
         info = client.scheduler_info()["workers"]
         return client, len(info), sum(w["nthreads"] for w in info.values()), scheduler
-    cluster = stack.enter_context(LocalCluster(
-        n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
-        dashboard_address=None, silence_logs=level,
-        # BLAS pools are held at one thread by the nanny's defaults; numba's too.
-        env={"NUMBA_NUM_THREADS": "1"},
-    ))
+    cluster = stack.enter_context(embedded_cluster(workers, quiet=quiet))
     client = stack.enter_context(Client(cluster))
     return client, workers, workers, "embedded"
 
@@ -173,7 +185,8 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
                scheduler=None, resume: bool = False, overwrite: bool = False,
                batch_size: int = 64, in_flight=None, retries: int = 2, columns=None,
                progress: bool = True, quiet: bool = False,
-               flush_seconds: float = 10.0, connect_timeout: float = 30.0) -> SurveySummary:
+               flush_seconds: float = 10.0, flush_rows: int = 1000,
+               connect_timeout: float = 30.0) -> SurveySummary:
     """Fit every object of a survey and write one result row per object.
 
     Parameters
@@ -211,8 +224,11 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
     quiet : bool, default False
         No progress bar, and only errors from dask's logs.
     flush_seconds : float, default 10.0
-        Buffered results are written at least this often, which bounds the
-        work a killed run loses.
+    flush_rows : int, default 1000
+        Buffered results are written when this many seconds have passed or
+        this many rows wait, whichever comes first: that bounds the work a
+        killed run loses. Each write is one journal file with an fsync, so
+        writing rarely keeps the client's share of a small machine low.
     connect_timeout : float, default 30.0
         Seconds allowed to reach ``scheduler`` and to find a worker there.
 
@@ -238,11 +254,20 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
         if scheduler or workers:
             client, used, threads, address = _connect(stack, workers, scheduler, quiet,
                                                       connect_timeout)
+            try:  # also proves the workers can run the pipeline at all
+                client.run(warm_up, config)
+            except Exception as exc:
+                raise ClusterError(
+                    f"the workers cannot run the survey pipeline ({type(exc).__name__}: {exc});"
+                    " check that every worker runs the same environment as this client"
+                ) from exc
         else:
             used, threads, address = 0, 0, "serial"
+            warm_up(config)
         store = stack.enter_context(ResultStore(
             out, param_names=param_names(spec), config=config.describe(), resume=resume,
-            overwrite=overwrite, model={"spec": spec.text}, flush_seconds=flush_seconds))
+            overwrite=overwrite, model={"spec": spec.text}, flush_seconds=flush_seconds,
+            flush_every=flush_rows))
         done = store.done_ids() if resume else set()
         bar = stack.enter_context(tqdm(
             total=source.remaining(done), unit="obj", file=sys.stderr, dynamic_ncols=True,
