@@ -228,3 +228,28 @@ def test_a_cluster_that_cannot_run_tasks_stops_the_run(tmp_path):
             run_survey(path, tmp_path / "r.h5", model=MODEL, scheduler=lc.scheduler_address,
                        batch_size=2, retries=0, progress=False, quiet=True)
     assert len(ResultStore.read(tmp_path / "r.h5")) == 0
+
+
+def test_the_writer_drops_a_result_for_an_id_already_written(tmp_path):
+    # The client-side guard behind "no result is written twice" (runner._Writer),
+    # fed the same batch twice as a resubmitted task could deliver it.
+    from longwave.survey.runner import _Writer
+    from longwave.survey.summary import Tally
+
+    fits = [fit_object([0.0, 1.0, 2.0, 3.0], [0.1, 0.5, 0.2, 0.4], 0.1, model_spec=MODEL,
+                       id=f"o{k}") for k in range(3)]
+    tally = Tally()
+
+    class Bar:
+        n = 0
+
+        def update(self, k):
+            self.n += k
+
+    with ResultStore(tmp_path / "w.h5", param_names=["matern32.amplitude", "matern32.scale",
+                                                     "mean", "excess_noise"]) as store:
+        writer = _Writer(store, set(), Bar(), tally)
+        writer.consume(fits)
+        writer.consume(fits[1:])
+    assert tally.duplicates == 2 and tally.count == 3
+    assert sorted(read_rows(tmp_path / "w.h5")) == ["o0", "o1", "o2"]
