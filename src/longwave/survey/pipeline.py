@@ -30,10 +30,6 @@ AUTO = "auto"
 # no exact state-space form: at n = 2000 one gradient evaluation takes about a
 # second, so beyond it a sparse method is the better deal.
 AUTO_EXACT_MAX_N = 2000
-# A state-space form whose covariance error is below this fraction of the
-# prior variance counts as exact for "auto" (approximate forms such as the
-# periodic kernel's truncated series report larger errors).
-EXACT_FORM_TOLERANCE = 1e-9
 # Sparse methods "auto" tries, in order of preference, when registered.
 SPARSE_PREFERENCE = ("vfe", "fitc")
 
@@ -126,10 +122,8 @@ def choose_method(model, n: int, method: str = AUTO, inducing: int | None = None
         sparse = name in SPARSE_PREFERENCE
         return methods.resolve(name, **(options if sparse else {}))
     kernel = model.kernel
-    if kernel.has_state_space:
-        bound = getattr(kernel, "covariance_error_bound", lambda: 0.0)()
-        if bound <= EXACT_FORM_TOLERANCE * kernel.variance():
-            return methods.resolve("kalman")
+    if kernel.has_exact_state_space:
+        return methods.resolve("kalman")
     if n <= AUTO_EXACT_MAX_N:
         return methods.resolve("exact")
     for sparse in SPARSE_PREFERENCE:
