@@ -7,10 +7,14 @@ heteroscedastic error bars, repeated times, gaps of many length scales and a
 large time offset (2.46e6, a Julian-date-like origin).
 """
 
+# ruff: noqa: I001  (longwave must be imported before numpy, see below)
 from __future__ import annotations
 
 import zlib
 
+# longwave first: it sets the passive thread-waiting variables (see
+# longwave/_config.py), which only act if set before numpy loads OpenBLAS.
+import longwave  # noqa: F401
 import numpy as np
 import pytest
 

@@ -4,7 +4,7 @@ Grammar (one string per method; values separated by commas, options by colons)::
 
     NAME[:OPTION=VALUE[,VALUE...]][:OPTION=VALUE[,VALUE...]]...
 
-``vfe:m=64,128,256`` gives three settings; ``fitc:m=64,128:placement=grid,kmeans``
+``vfe:m=64,128,256`` gives three settings; ``fitc:m=64,128:placement=uniform,kmeans``
 gives the four combinations. Options are the keyword arguments of the method's
 constructor, so any method, present or future, is configured the same way;
 ``m`` is shorthand for ``inducing``. Names map to objects in
@@ -30,7 +30,7 @@ ALIASES = {"m": "inducing"}
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _KEY = re.compile(r"^(kernel\.)?[A-Za-z][A-Za-z0-9_]*$")
 
-_EXAMPLE = "for example 'exact', 'kalman' or 'vfe:m=64,128,256:placement=grid'"
+_EXAMPLE = "for example 'exact', 'kalman' or 'vfe:m=64,128,256:placement=uniform'"
 
 
 @dataclass(frozen=True)

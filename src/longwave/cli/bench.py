@@ -36,7 +36,7 @@ def register(sub) -> None:
     p.add_argument("--model", default=None,
                    help="model specification or .toml model file (default: matern32)")
     p.add_argument("--methods", nargs="+", default=None, metavar="SETTING",
-                   help="settings such as exact kalman vfe:m=64,128 fitc:m=128:placement=grid "
+                   help="settings such as exact kalman vfe:m=64,128 fitc:m=128:placement=uniform "
                    "(default: every registered method)")
     p.add_argument("--tolerance", type=float, default=0.01,
                    help="nats: bounds |dlml|/n and mean KL by it, mean error/sd by "
