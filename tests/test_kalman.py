@@ -205,3 +205,17 @@ def test_predict_accepts_empty_and_lists():
     post = Kalman().posterior(small_model(), Series([0.0, 1.0], [0.0, 1.0], err=0.1))
     assert post.predict([]).mean.shape == (0,)
     assert post.predict([0.5, 0.5]).var.shape == (2,)
+
+
+def test_observed_prediction_rejects_error_bars_of_the_wrong_shape():
+    # Common practice: an input error names the expected shape and the one received.
+    import longwave as lw
+    from longwave.kernels import Matern32
+
+    series = lw.Series([0.0, 1.0, 2.0], [0.1, 0.2, 0.0], err=0.1)
+    post = lw.posterior(lw.Model(Matern32(amplitude=1.0, scale=1.0)), series)
+    with pytest.raises(ValueError, match=r"shape \(4,\) matching t, got shape \(3,\)"):
+        post.predict([0.5, 1.5, 2.5, 3.5], observed=True, err=[0.1, 0.1, 0.1])
+    pred = post.predict([0.5, 1.5], observed=True, err=[0.1, 0.2])
+    latent = post.predict([0.5, 1.5])
+    np.testing.assert_allclose(pred.var - latent.var, [0.01, 0.04])

@@ -94,6 +94,11 @@ class Posterior:
         mean = mean + self.model.mean_value
         if observed:
             e = np.zeros(t.size) if err is None else np.asarray(err, float)
+            if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):
+                raise ValueError(
+                    f"err must be a number or an array of shape ({t.size},) matching t, "
+                    f"got shape {e.shape}"
+                )
             e = np.broadcast_to(e, t.shape)
             var = var + self.model.noise_variance(e)
         return Prediction(t=t, mean=mean, var=var)
