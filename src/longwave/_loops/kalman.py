@@ -137,6 +137,51 @@ def filter_loglik(t, resid, noise, H, Pinf, trans):
 
 
 @njit(cache=True)
+def update_sensitivities(v, S, Ph, H, dm, dP, dobs, dPh, grad):
+    """Measurement update of the forward sensitivities ``dm`` (p, d), ``dP`` (p, d, d).
+
+    ``v``, ``S``, ``Ph`` are this step's innovation, its variance and ``P H``
+    before the update; ``dobs = (dnoise, dmean)``. Adds the step's terms of
+    ``d(log S + v^2 / S)`` to ``grad`` (p,); ``dPh`` (d,) is scratch.
+    Differentiates ``m+ = m + Ph v / S`` and ``P+ = P - Ph Ph^T / S``.
+    """
+    dnoise, dmean = dobs
+    d = H.size
+    for q in range(dnoise.size):
+        dS = dnoise[q]
+        dv = -dmean[q]
+        for a in range(d):
+            acc = 0.0
+            for c in range(d):
+                acc += dP[q, a, c] * H[c]
+            dPh[a] = acc
+            dS += H[a] * acc
+            dv -= H[a] * dm[q, a]
+        grad[q] += dS / S + 2.0 * v * dv / S - v * v * dS / (S * S)
+        for a in range(d):
+            dm[q, a] += (dPh[a] * v + Ph[a] * dv) / S - Ph[a] * v * dS / (S * S)
+        for a in range(d):
+            for b in range(a, d):
+                dP[q, a, b] -= (
+                    (dPh[a] * Ph[b] + Ph[a] * dPh[b]) / S - Ph[a] * Ph[b] * dS / (S * S)
+                )
+                dP[q, b, a] = dP[q, a, b]
+
+
+@njit(cache=True)
+def update_state(v, S, Ph, m, P):
+    """Measurement update of the state: ``m += Ph v / S``, ``P -= Ph Ph^T / S`` (symmetric)."""
+    d = m.size
+    gain = v / S
+    for a in range(d):
+        m[a] += Ph[a] * gain
+    for a in range(d):
+        for b in range(a, d):
+            P[a, b] -= Ph[a] * Ph[b] / S
+            P[b, a] = P[a, b]
+
+
+@njit(cache=True)
 def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens):
     """Log marginal likelihood and its gradient by forward sensitivities.
 
@@ -223,33 +268,8 @@ def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens):
             S += H[a] * acc
             v -= H[a] * m[a]
         total += math.log(S) + v * v / S
-        for q in range(p):
-            dS = dnoise[q]
-            dv = -dmean[q]
-            for a in range(d):
-                acc = 0.0
-                for c in range(d):
-                    acc += dP[q, a, c] * H[c]
-                dPh[a] = acc
-                dS += H[a] * acc
-                dv -= H[a] * dm[q, a]
-            grad[q] += dS / S + 2.0 * v * dv / S - v * v * dS / (S * S)
-            # m+ = m + Ph v / S ;  P+ = P - Ph Ph^T / S
-            for a in range(d):
-                dm[q, a] += (dPh[a] * v + Ph[a] * dv) / S - Ph[a] * v * dS / (S * S)
-            for a in range(d):
-                for b in range(a, d):
-                    dP[q, a, b] -= (
-                        (dPh[a] * Ph[b] + Ph[a] * dPh[b]) / S - Ph[a] * Ph[b] * dS / (S * S)
-                    )
-                    dP[q, b, a] = dP[q, a, b]
-        gain = v / S
-        for a in range(d):
-            m[a] += Ph[a] * gain
-        for a in range(d):
-            for b in range(a, d):
-                P[a, b] -= Ph[a] * Ph[b] / S
-                P[b, a] = P[a, b]
+        update_sensitivities(v, S, Ph, H, dm, dP, (dnoise, dmean), dPh, grad)
+        update_state(v, S, Ph, m, P)
     return -0.5 * (total + n * LOG_2PI), -0.5 * grad
 
 

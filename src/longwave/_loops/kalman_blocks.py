@@ -33,6 +33,8 @@ import math
 import numpy as np
 from numba import njit
 
+from .kalman import update_sensitivities, update_state
+
 LOG_2PI = math.log(2.0 * math.pi)
 
 
@@ -293,30 +295,6 @@ def filter_loglik_grad(t, resid, noise, H, Pinf, trans, sens, slots):
                 _sandwich(blocks, bstart, P, Pinf, work, P)
         v, S = _update(m, P, H, resid[i], noise[i], Ph)
         total += math.log(S) + v * v / S
-        for q in range(p):
-            dS = dnoise[q]
-            dv = -dmean[q]
-            for a in range(d):
-                acc = 0.0
-                for c in range(d):
-                    acc += dP[q, a, c] * H[c]
-                dPh[a] = acc
-                dS += H[a] * acc
-                dv -= H[a] * dm[q, a]
-            grad[q] += dS / S + 2.0 * v * dv / S - v * v * dS / (S * S)
-            for a in range(d):
-                dm[q, a] += (dPh[a] * v + Ph[a] * dv) / S - Ph[a] * v * dS / (S * S)
-            for a in range(d):
-                for e in range(a, d):
-                    dP[q, a, e] -= (
-                        (dPh[a] * Ph[e] + Ph[a] * dPh[e]) / S - Ph[a] * Ph[e] * dS / (S * S)
-                    )
-                    dP[q, e, a] = dP[q, a, e]
-        gain = v / S
-        for a in range(d):
-            m[a] += Ph[a] * gain
-        for a in range(d):
-            for e in range(a, d):
-                P[a, e] -= Ph[a] * Ph[e] / S
-                P[e, a] = P[a, e]
+        update_sensitivities(v, S, Ph, H, dm, dP, (dnoise, dmean), dPh, grad)
+        update_state(v, S, Ph, m, P)
     return -0.5 * (total + n * LOG_2PI), -0.5 * grad
