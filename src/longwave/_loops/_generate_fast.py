@@ -567,43 +567,107 @@ def gen_loglik_grad(code, tr):
     code.dedent()
 
 
-def smooth_step(code, d, mf, Pf, ms_next, Ps_next, amat, mean_out, cov_out):
-    """One RTS step from filtered scalars to smoothed output.
+def smooth_gain_lanes(code, tr):
+    """RTS gains of the four steps ``b .. b + 3`` as 4-tuples, stored to ``gain`` rows.
 
-    ``mf``/``Pf`` name the filtered scalars (symmetric ``Pf``), ``ms_next(a)``
-    and ``Ps_next(a, b)`` give the smoothed state at the next time, and
-    ``mean_out(a, expr)``/``cov_out(a, b, expr)`` emit the stores. With the
-    predicted covariance ``pp`` and ``C = A Pf``, the gain is ``G = C^T pp^-1``
-    (solved by LDL^T, held as its transpose ``gt``).
+    Everything of an RTS step but the recursion itself depends only on the
+    filtered state and ``A``: the predicted covariance ``pp``, ``C = A Pf``,
+    the gain ``G = C^T pp^-1`` (by LDL^T, held as its transpose ``gt``) and
+    ``x = A mf``. Four steps at a time in vector lanes take these off the
+    backward chain (:func:`gen_smooth`). Lanes past the block's last step read
+    its last filtered state and give values nobody reads.
     """
-    for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = {sym(Pf, a, b)} - {sym('pf', a, b)}")
-    axat(code, d, amat, "qq", "w", "pp")
-    for a, b in upper(d):
-        code(f"{sym('pp', a, b)} += {sym('pf', a, b)}")
+    d = tr.d
+    code("k0 = begin + b")
+    code(*[f"k{j} = min(k0 + {j}, last)" for j in (1, 2, 3)])
+    ks = ["k0", "k1", "k2", "k3"]
+
+    def gather(expr):
+        return "(" + ", ".join(expr.format(k=k) for k in ks) + ")"
+
+    if tr.single:
+        code("ve = vload(re, b)")
+        if d > 1:
+            code("vh = vload(rh, b)")
     for a in range(d):
         for c in range(d):
-            code(f"cc{a}{c} = " + dot([f"{amat}{a}{k} * {sym(Pf, k, c)}" for k in range(d)]))
-    ldl_solve(code, d, "pp", [[f"cc{i}{c}" for i in range(d)] for c in range(d)], "gt")
-    for a in range(d):
-        code(
-            f"dd{a} = {ms_next(a)} - ("
-            + dot([f"{amat}{a}{c} * {mf}{c}" for c in range(d)])
-            + ")"
-        )
-    for a in range(d):
-        mean_out(a, f"{mf}{a} + " + dot([f"gt{c}{a} * dd{c}" for c in range(d)]))
+            if tr.single:
+                poly = f"vc{d - 1}{a}{c}"
+                for k in range(d - 2, -1, -1):
+                    poly = f"vfma(vh, {poly}, vc{k}{a}{c})"
+                code(f"va{a}{c} = vmul(ve, {poly})")
+            else:
+                code(f"va{a}{c} = vload(ra{a * d + c}, b)")
     for a, b in upper(d):
-        code(f"{sym('dp', a, b)} = {Ps_next(a, b)} - {sym('pp', a, b)}")
+        code(f"{sym('vf', a, b)} = {gather(f'Pf[{{k}}, {a}, {b}]')}")
+    for a in range(d):
+        code(f"vfm{a} = {gather(f'mf[{{k}}, {a}]')}")
+    for a, b in upper(d):
+        code(f"{sym('vq', a, b)} = vsub({sym('vf', a, b)}, {sym('vpf', a, b)})")
+    for a in range(d):
+        for c in range(d):
+            code(f"vw{a}{c} = " + vsum([(f"va{a}{k}", sym("vq", k, c)) for k in range(d)]))
+    for a, b in upper(d):
+        code(f"{sym('vp', a, b)} = "
+             + vsum([(f"vw{a}{c}", f"va{b}{c}") for c in range(d)], sym("vpf", a, b)))
+    for a in range(d):
+        for c in range(d):
+            code(f"vcc{a}{c} = " + vsum([(f"va{a}{k}", sym("vf", k, c)) for k in range(d)]))
+    # LDL^T of pp; a pivot without variance gets no weight (vrecip_pos)
+    for j in range(d):
+        sub = vsum([(f"vl{j}{k}", f"vmul(vl{j}{k}, vdg{k})") for k in range(j)])
+        code(f"vdg{j} = " + (f"vsub({sym('vp', j, j)}, {sub})" if j else sym("vp", 0, 0)))
+        code(f"viv{j} = vrecip_pos(vdg{j})")
+        for i in range(j + 1, d):
+            sub = vsum([(f"vl{i}{k}", f"vmul(vl{j}{k}, vdg{k})") for k in range(j)])
+            num = f"vsub({sym('vp', i, j)}, {sub})" if j else sym("vp", i, j)
+            code(f"vl{i}{j} = vmul({num}, viv{j})")
+    for col in range(d):
+        for i in range(d):
+            sub = vsum([(f"vl{i}{k}", f"vz{k}") for k in range(i)])
+            code(f"vz{i} = " + (f"vsub(vcc{i}{col}, {sub})" if i else f"vcc{i}{col}"))
+        for i in range(d - 1, -1, -1):
+            sub = vsum([(f"vl{k}{i}", f"vg{k}{col}") for k in range(i + 1, d)])
+            scaled = f"vmul(vz{i}, viv{i})"
+            code(f"vg{i}{col} = " + (f"vsub({scaled}, {sub})" if i < d - 1 else scaled))
+    for i in range(d):
+        for c in range(d):
+            code(f"vstore(rg{i * d + c}, b, vg{i}{c})")
+    for a, b in upper(d):
+        code(f"vstore(rp{packed(d, a, b)}, b, {sym('vp', a, b)})")
+    for a in range(d):
+        code(f"vstore(rx{a}, b, " + vsum([(f"va{a}{c}", f"vfm{c}") for c in range(d)]) + ")")
+
+
+def smooth_recursion(code, d):
+    """One backward RTS step at step ``b`` from the gains stored by :func:`smooth_gain_lanes`.
+
+    ``ms = mf + G (sm - A mf)``, ``Ps = Pf + G (sp - pp) G^T`` (Rauch, Tung &
+    Striebel 1965), with the smoothed state ``sm``/``sp`` of the next time
+    carried in scalars.
+    """
+    for a in range(d):
+        code(f"fm{a} = mf[k, {a}]")
+    for i in range(d):
+        for c in range(d):
+            code(f"gt{i}{c} = gain[G_GT + {i * d + c}, b]")
+    for a in range(d):
+        code(f"dd{a} = sm{a} - gain[G_X + {a}, b]")
+    for a, b in upper(d):
+        code(f"{sym('dp', a, b)} = {sym('sp', a, b)} - gain[G_PP + {packed(d, a, b)}, b]")
+    for a in range(d):
+        code(f"sm{a} = fm{a} + " + dot([f"gt{c}{a} * dd{c}" for c in range(d)]))
     for a in range(d):
         for c in range(d):
             code(f"gd{a}{c} = " + dot([f"gt{k}{a} * {sym('dp', k, c)}" for k in range(d)]))
     for a, b in upper(d):
-        cov_out(a, b, f"{sym(Pf, a, b)} + " + dot([f"gd{a}{c} * gt{c}{b}" for c in range(d)]))
+        code(f"{sym('sp', a, b)} = Pf[k, {a}, {b}] + "
+             + dot([f"gd{a}{c} * gt{c}{b}" for c in range(d)]))
 
 
 def gen_smooth(code, tr):
     d = tr.d
+    ns = d * (d + 1) // 2
     code(
         "@njit(cache=True, fastmath={'contract'})",
         f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
@@ -613,59 +677,77 @@ def gen_smooth(code, tr):
         "    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the",
         "    filtered one for a whole series, a checkpoint for a block of it). The",
         "    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.",
+        "",
+        "    Per block of ``work.shape[1]`` steps, first the gains of every step, four",
+        "    steps at a time in vector lanes (they do not depend on the recursion),",
+        "    then the backward recursion reading them. Only the width of ``work`` is",
+        "    used: the smoother keeps transitions and gains in its own scratch, padded",
+        "    to whole groups of four, so every step takes the same lane arithmetic",
+        "    whatever the block boundaries (a lean posterior's blocks then reproduce",
+        "    a whole pass exactly).",
         '    """',
     )
     code.indent()
     code("n = t.size")
     load_pinf(code, d)
     tr.preamble(code)
+    for a, b in upper(d):
+        code(f"{sym('vpf', a, b)} = vsplat({sym('pf', a, b)})")
+    if tr.single:
+        for k in range(d):
+            for a in range(d):
+                for c in range(d):
+                    code(f"vc{k}{a}{c} = vsplat(c{k}{a}{c})")
+    code(
+        "block = work.shape[1]",
+        "width = (block + 3) // 4 * 4",
+        f"scratch = np.zeros((ROW_A + {d * d}, width))",
+        "dtr = scratch[ROW_DT]",
+        "G_GT = 0",
+        f"G_PP = {d * d}",
+        f"G_X = {d * d + ns}",
+        f"gain = np.zeros(({d * d + ns + d}, width))",
+    )
+    code("# row views once, outside the loops (a view per step costs reference counts)")
+    for e in range(d * d):
+        code(f"rg{e} = gain[G_GT + {e}]")
+    for e in range(ns):
+        code(f"rp{e} = gain[G_PP + {e}]")
+    for a in range(d):
+        code(f"rx{a} = gain[G_X + {a}]")
+    if tr.single:
+        code("re = scratch[ROW_E]")
+        if d > 1:
+            code("rh = scratch[ROW_DT]")
+    else:
+        for e in range(d * d):
+            code(f"ra{e} = scratch[ROW_A + {e}]")
     for a in range(d):
         code(f"sm{a} = ms[n - 1, {a}]")
     for a, b in upper(d):
         code(f"{sym('sp', a, b)} = Ps[n - 1, {a}, {b}]")
-    code(
-        "block = work.shape[1]",
-        "dtr = work[ROW_DT]",
-        "end = n - 1",
-        "while end > 0:",
-    )
+    code("end = n - 1", "while end > 0:")
     code.indent()
     code(
         "begin = max(0, end - block)",
         "cnt = end - begin",
+        "last = end - 1",
         "# dtr[b] = t[begin + b + 1] - t[begin + b]",
         "step_sizes(t, begin + 1, cnt, dtr)",
     )
-    tr.fill(code)
+    if tr.single:
+        code("fill_decay(cnt, rate0, scratch)")
+    else:
+        code("fill_transition(cnt, trans, scratch, ROW_A)")
+    code("for b in range(0, cnt, 4):")
+    code.indent()
+    smooth_gain_lanes(code, tr)
+    code.dedent()
     code("for b in range(cnt - 1, -1, -1):")
     code.indent()
-    code(
-        "k = begin + b",
-        "if dtr[b] > 0.0:",
-    )
+    code("k = begin + b", "if dtr[b] > 0.0:")
     code.indent()
-    tr.load(code, "a", "b")
-    for a in range(d):
-        code(f"fm{a} = mf[k, {a}]")
-    for a, b in upper(d):
-        code(f"{sym('f', a, b)} = Pf[k, {a}, {b}]")
-
-    def mean_out(a, expr):
-        code(f"nm{a} = {expr}")
-
-    def cov_out(a, b, expr):
-        code(f"{sym('np', a, b)} = {expr}")
-
-    smooth_step(
-        code, d, "fm", "f",
-        lambda a: f"sm{a}",
-        lambda a, b: sym("sp", a, b),
-        "a", mean_out, cov_out,
-    )
-    for a in range(d):
-        code(f"sm{a} = nm{a}")
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = {sym('np', a, b)}")
+    smooth_recursion(code, d)
     code.dedent()
     code("# (a repeated time keeps the state: one state, conditioned on every copy)")
     for a in range(d):

@@ -2248,46 +2248,75 @@ def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
+    vpf00 = vsplat(pf00)
+    vc000 = vsplat(c000)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 1, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 1
+    G_X = 2
+    gain = np.zeros((3, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rp0 = gain[G_PP + 0]
+    rx0 = gain[G_X + 0]
+    re = scratch[ROW_E]
     sm0 = ms[n - 1, 0]
     sp00 = Ps[n - 1, 0, 0]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, work)
+        fill_decay(cnt, rate0, scratch)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            ve = vload(re, b)
+            va00 = vmul(ve, vc000)
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vq00 = vsub(vf00, vpf00)
+            vw00 = vmul(va00, vq00)
+            vp00 = vfma(vw00, va00, vpf00)
+            vcc00 = vmul(va00, vf00)
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vz0 = vcc00
+            vg00 = vmul(vz0, viv0)
+            vstore(rg0, b, vg00)
+            vstore(rp0, b, vp00)
+            vstore(rx0, b, vmul(va00, vfm0))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                a00 = ee * (c000)
                 fm0 = mf[k, 0]
-                f00 = Pf[k, 0, 0]
-                qq00 = f00 - pf00
-                w00 = a00 * qq00
-                pp00 = w00 * a00
-                pp00 += pf00
-                cc00 = a00 * f00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = cc00
-                gt00 = z0 * iv0
-                dd0 = sm0 - (a00 * fm0)
-                nm0 = fm0 + gt00 * dd0
-                dp00 = sp00 - pp00
+                gt00 = gain[G_GT + 0, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                sm0 = fm0 + gt00 * dd0
                 gd00 = gt00 * dp00
-                np00 = f00 + gd00 * gt00
-                sm0 = nm0
-                sp00 = np00
+                sp00 = Pf[k, 0, 0] + gd00 * gt00
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             Ps[k, 0, 0] = sp00
@@ -2302,6 +2331,14 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
@@ -2317,83 +2354,125 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c101 = coef[0, 1, 0, 1]
     c110 = coef[0, 1, 1, 0]
     c111 = coef[0, 1, 1, 1]
+    vpf00 = vsplat(pf00)
+    vpf01 = vsplat(pf01)
+    vpf11 = vsplat(pf11)
+    vc000 = vsplat(c000)
+    vc001 = vsplat(c001)
+    vc010 = vsplat(c010)
+    vc011 = vsplat(c011)
+    vc100 = vsplat(c100)
+    vc101 = vsplat(c101)
+    vc110 = vsplat(c110)
+    vc111 = vsplat(c111)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 4, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 4
+    G_X = 7
+    gain = np.zeros((9, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rg1 = gain[G_GT + 1]
+    rg2 = gain[G_GT + 2]
+    rg3 = gain[G_GT + 3]
+    rp0 = gain[G_PP + 0]
+    rp1 = gain[G_PP + 1]
+    rp2 = gain[G_PP + 2]
+    rx0 = gain[G_X + 0]
+    rx1 = gain[G_X + 1]
+    re = scratch[ROW_E]
+    rh = scratch[ROW_DT]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sp00 = Ps[n - 1, 0, 0]
     sp01 = Ps[n - 1, 0, 1]
     sp11 = Ps[n - 1, 1, 1]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, work)
+        fill_decay(cnt, rate0, scratch)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            ve = vload(re, b)
+            vh = vload(rh, b)
+            va00 = vmul(ve, vfma(vh, vc100, vc000))
+            va01 = vmul(ve, vfma(vh, vc101, vc001))
+            va10 = vmul(ve, vfma(vh, vc110, vc010))
+            va11 = vmul(ve, vfma(vh, vc111, vc011))
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
+            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+            vq00 = vsub(vf00, vpf00)
+            vq01 = vsub(vf01, vpf01)
+            vq11 = vsub(vf11, vpf11)
+            vw00 = vfma(va00, vq00, vmul(va01, vq01))
+            vw01 = vfma(va00, vq01, vmul(va01, vq11))
+            vw10 = vfma(va10, vq00, vmul(va11, vq01))
+            vw11 = vfma(va10, vq01, vmul(va11, vq11))
+            vp00 = vfma(vw00, va00, vfma(vw01, va01, vpf00))
+            vp01 = vfma(vw00, va10, vfma(vw01, va11, vpf01))
+            vp11 = vfma(vw10, va10, vfma(vw11, va11, vpf11))
+            vcc00 = vfma(va00, vf00, vmul(va01, vf01))
+            vcc01 = vfma(va00, vf01, vmul(va01, vf11))
+            vcc10 = vfma(va10, vf00, vmul(va11, vf01))
+            vcc11 = vfma(va10, vf01, vmul(va11, vf11))
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vl10 = vmul(vp01, viv0)
+            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
+            viv1 = vrecip_pos(vdg1)
+            vz0 = vcc00
+            vz1 = vsub(vcc10, vmul(vl10, vz0))
+            vg10 = vmul(vz1, viv1)
+            vg00 = vsub(vmul(vz0, viv0), vmul(vl10, vg10))
+            vz0 = vcc01
+            vz1 = vsub(vcc11, vmul(vl10, vz0))
+            vg11 = vmul(vz1, viv1)
+            vg01 = vsub(vmul(vz0, viv0), vmul(vl10, vg11))
+            vstore(rg0, b, vg00)
+            vstore(rg1, b, vg01)
+            vstore(rg2, b, vg10)
+            vstore(rg3, b, vg11)
+            vstore(rp0, b, vp00)
+            vstore(rp1, b, vp01)
+            vstore(rp2, b, vp11)
+            vstore(rx0, b, vfma(va00, vfm0, vmul(va01, vfm1)))
+            vstore(rx1, b, vfma(va10, vfm0, vmul(va11, vfm1)))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * c100)
-                a01 = ee * (c001 + hh * c101)
-                a10 = ee * (c010 + hh * c110)
-                a11 = ee * (c011 + hh * c111)
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f11 = Pf[k, 1, 1]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq11 = f11 - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                pp00 = w00 * a00 + w01 * a01
-                pp01 = w00 * a10 + w01 * a11
-                pp11 = w10 * a10 + w11 * a11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                cc00 = a00 * f00 + a01 * f01
-                cc01 = a00 * f01 + a01 * f11
-                cc10 = a10 * f00 + a11 * f01
-                cc11 = a10 * f01 + a11 * f11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                gt10 = z1 * iv1
-                gt00 = z0 * iv0 - l10 * gt10
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                gt11 = z1 * iv1
-                gt01 = z0 * iv0 - l10 * gt11
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp11 = sp11 - pp11
+                gt00 = gain[G_GT + 0, b]
+                gt01 = gain[G_GT + 1, b]
+                gt10 = gain[G_GT + 2, b]
+                gt11 = gain[G_GT + 3, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dd1 = sm1 - gain[G_X + 1, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                dp01 = sp01 - gain[G_PP + 1, b]
+                dp11 = sp11 - gain[G_PP + 2, b]
+                sm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                sm1 = fm1 + gt01 * dd0 + gt11 * dd1
                 gd00 = gt00 * dp00 + gt10 * dp01
                 gd01 = gt00 * dp01 + gt10 * dp11
                 gd10 = gt01 * dp00 + gt11 * dp01
                 gd11 = gt01 * dp01 + gt11 * dp11
-                np00 = f00 + gd00 * gt00 + gd01 * gt10
-                np01 = f01 + gd00 * gt01 + gd01 * gt11
-                np11 = f11 + gd10 * gt01 + gd11 * gt11
-                sm0 = nm0
-                sm1 = nm1
-                sp00 = np00
-                sp01 = np01
-                sp11 = np11
+                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10
+                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11
+                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
@@ -2412,6 +2491,14 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
@@ -2449,6 +2536,68 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c220 = coef[0, 2, 2, 0]
     c221 = coef[0, 2, 2, 1]
     c222 = coef[0, 2, 2, 2]
+    vpf00 = vsplat(pf00)
+    vpf01 = vsplat(pf01)
+    vpf02 = vsplat(pf02)
+    vpf11 = vsplat(pf11)
+    vpf12 = vsplat(pf12)
+    vpf22 = vsplat(pf22)
+    vc000 = vsplat(c000)
+    vc001 = vsplat(c001)
+    vc002 = vsplat(c002)
+    vc010 = vsplat(c010)
+    vc011 = vsplat(c011)
+    vc012 = vsplat(c012)
+    vc020 = vsplat(c020)
+    vc021 = vsplat(c021)
+    vc022 = vsplat(c022)
+    vc100 = vsplat(c100)
+    vc101 = vsplat(c101)
+    vc102 = vsplat(c102)
+    vc110 = vsplat(c110)
+    vc111 = vsplat(c111)
+    vc112 = vsplat(c112)
+    vc120 = vsplat(c120)
+    vc121 = vsplat(c121)
+    vc122 = vsplat(c122)
+    vc200 = vsplat(c200)
+    vc201 = vsplat(c201)
+    vc202 = vsplat(c202)
+    vc210 = vsplat(c210)
+    vc211 = vsplat(c211)
+    vc212 = vsplat(c212)
+    vc220 = vsplat(c220)
+    vc221 = vsplat(c221)
+    vc222 = vsplat(c222)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 9, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 9
+    G_X = 15
+    gain = np.zeros((18, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rg1 = gain[G_GT + 1]
+    rg2 = gain[G_GT + 2]
+    rg3 = gain[G_GT + 3]
+    rg4 = gain[G_GT + 4]
+    rg5 = gain[G_GT + 5]
+    rg6 = gain[G_GT + 6]
+    rg7 = gain[G_GT + 7]
+    rg8 = gain[G_GT + 8]
+    rp0 = gain[G_PP + 0]
+    rp1 = gain[G_PP + 1]
+    rp2 = gain[G_PP + 2]
+    rp3 = gain[G_PP + 3]
+    rp4 = gain[G_PP + 4]
+    rp5 = gain[G_PP + 5]
+    rx0 = gain[G_X + 0]
+    rx1 = gain[G_X + 1]
+    rx2 = gain[G_X + 2]
+    re = scratch[ROW_E]
+    rh = scratch[ROW_DT]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sm2 = ms[n - 1, 2]
@@ -2458,113 +2607,141 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     sp11 = Ps[n - 1, 1, 1]
     sp12 = Ps[n - 1, 1, 2]
     sp22 = Ps[n - 1, 2, 2]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, work)
+        fill_decay(cnt, rate0, scratch)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            ve = vload(re, b)
+            vh = vload(rh, b)
+            va00 = vmul(ve, vfma(vh, vfma(vh, vc200, vc100), vc000))
+            va01 = vmul(ve, vfma(vh, vfma(vh, vc201, vc101), vc001))
+            va02 = vmul(ve, vfma(vh, vfma(vh, vc202, vc102), vc002))
+            va10 = vmul(ve, vfma(vh, vfma(vh, vc210, vc110), vc010))
+            va11 = vmul(ve, vfma(vh, vfma(vh, vc211, vc111), vc011))
+            va12 = vmul(ve, vfma(vh, vfma(vh, vc212, vc112), vc012))
+            va20 = vmul(ve, vfma(vh, vfma(vh, vc220, vc120), vc020))
+            va21 = vmul(ve, vfma(vh, vfma(vh, vc221, vc121), vc021))
+            va22 = vmul(ve, vfma(vh, vfma(vh, vc222, vc122), vc022))
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
+            vf02 = (Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2])
+            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
+            vf12 = (Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2])
+            vf22 = (Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+            vfm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+            vq00 = vsub(vf00, vpf00)
+            vq01 = vsub(vf01, vpf01)
+            vq02 = vsub(vf02, vpf02)
+            vq11 = vsub(vf11, vpf11)
+            vq12 = vsub(vf12, vpf12)
+            vq22 = vsub(vf22, vpf22)
+            vw00 = vfma(va00, vq00, vfma(va01, vq01, vmul(va02, vq02)))
+            vw01 = vfma(va00, vq01, vfma(va01, vq11, vmul(va02, vq12)))
+            vw02 = vfma(va00, vq02, vfma(va01, vq12, vmul(va02, vq22)))
+            vw10 = vfma(va10, vq00, vfma(va11, vq01, vmul(va12, vq02)))
+            vw11 = vfma(va10, vq01, vfma(va11, vq11, vmul(va12, vq12)))
+            vw12 = vfma(va10, vq02, vfma(va11, vq12, vmul(va12, vq22)))
+            vw20 = vfma(va20, vq00, vfma(va21, vq01, vmul(va22, vq02)))
+            vw21 = vfma(va20, vq01, vfma(va21, vq11, vmul(va22, vq12)))
+            vw22 = vfma(va20, vq02, vfma(va21, vq12, vmul(va22, vq22)))
+            vp00 = vfma(vw00, va00, vfma(vw01, va01, vfma(vw02, va02, vpf00)))
+            vp01 = vfma(vw00, va10, vfma(vw01, va11, vfma(vw02, va12, vpf01)))
+            vp02 = vfma(vw00, va20, vfma(vw01, va21, vfma(vw02, va22, vpf02)))
+            vp11 = vfma(vw10, va10, vfma(vw11, va11, vfma(vw12, va12, vpf11)))
+            vp12 = vfma(vw10, va20, vfma(vw11, va21, vfma(vw12, va22, vpf12)))
+            vp22 = vfma(vw20, va20, vfma(vw21, va21, vfma(vw22, va22, vpf22)))
+            vcc00 = vfma(va00, vf00, vfma(va01, vf01, vmul(va02, vf02)))
+            vcc01 = vfma(va00, vf01, vfma(va01, vf11, vmul(va02, vf12)))
+            vcc02 = vfma(va00, vf02, vfma(va01, vf12, vmul(va02, vf22)))
+            vcc10 = vfma(va10, vf00, vfma(va11, vf01, vmul(va12, vf02)))
+            vcc11 = vfma(va10, vf01, vfma(va11, vf11, vmul(va12, vf12)))
+            vcc12 = vfma(va10, vf02, vfma(va11, vf12, vmul(va12, vf22)))
+            vcc20 = vfma(va20, vf00, vfma(va21, vf01, vmul(va22, vf02)))
+            vcc21 = vfma(va20, vf01, vfma(va21, vf11, vmul(va22, vf12)))
+            vcc22 = vfma(va20, vf02, vfma(va21, vf12, vmul(va22, vf22)))
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vl10 = vmul(vp01, viv0)
+            vl20 = vmul(vp02, viv0)
+            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
+            viv1 = vrecip_pos(vdg1)
+            vl21 = vmul(vsub(vp12, vmul(vl20, vmul(vl10, vdg0))), viv1)
+            vdg2 = vsub(vp22, vfma(vl20, vmul(vl20, vdg0), vmul(vl21, vmul(vl21, vdg1))))
+            viv2 = vrecip_pos(vdg2)
+            vz0 = vcc00
+            vz1 = vsub(vcc10, vmul(vl10, vz0))
+            vz2 = vsub(vcc20, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg20 = vmul(vz2, viv2)
+            vg10 = vsub(vmul(vz1, viv1), vmul(vl21, vg20))
+            vg00 = vsub(vmul(vz0, viv0), vfma(vl10, vg10, vmul(vl20, vg20)))
+            vz0 = vcc01
+            vz1 = vsub(vcc11, vmul(vl10, vz0))
+            vz2 = vsub(vcc21, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg21 = vmul(vz2, viv2)
+            vg11 = vsub(vmul(vz1, viv1), vmul(vl21, vg21))
+            vg01 = vsub(vmul(vz0, viv0), vfma(vl10, vg11, vmul(vl20, vg21)))
+            vz0 = vcc02
+            vz1 = vsub(vcc12, vmul(vl10, vz0))
+            vz2 = vsub(vcc22, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg22 = vmul(vz2, viv2)
+            vg12 = vsub(vmul(vz1, viv1), vmul(vl21, vg22))
+            vg02 = vsub(vmul(vz0, viv0), vfma(vl10, vg12, vmul(vl20, vg22)))
+            vstore(rg0, b, vg00)
+            vstore(rg1, b, vg01)
+            vstore(rg2, b, vg02)
+            vstore(rg3, b, vg10)
+            vstore(rg4, b, vg11)
+            vstore(rg5, b, vg12)
+            vstore(rg6, b, vg20)
+            vstore(rg7, b, vg21)
+            vstore(rg8, b, vg22)
+            vstore(rp0, b, vp00)
+            vstore(rp1, b, vp01)
+            vstore(rp2, b, vp02)
+            vstore(rp3, b, vp11)
+            vstore(rp4, b, vp12)
+            vstore(rp5, b, vp22)
+            vstore(rx0, b, vfma(va00, vfm0, vfma(va01, vfm1, vmul(va02, vfm2))))
+            vstore(rx1, b, vfma(va10, vfm0, vfma(va11, vfm1, vmul(va12, vfm2))))
+            vstore(rx2, b, vfma(va20, vfm0, vfma(va21, vfm1, vmul(va22, vfm2))))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * (c100 + hh * c200))
-                a01 = ee * (c001 + hh * (c101 + hh * c201))
-                a02 = ee * (c002 + hh * (c102 + hh * c202))
-                a10 = ee * (c010 + hh * (c110 + hh * c210))
-                a11 = ee * (c011 + hh * (c111 + hh * c211))
-                a12 = ee * (c012 + hh * (c112 + hh * c212))
-                a20 = ee * (c020 + hh * (c120 + hh * c220))
-                a21 = ee * (c021 + hh * (c121 + hh * c221))
-                a22 = ee * (c022 + hh * (c122 + hh * c222))
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
                 fm2 = mf[k, 2]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f02 = Pf[k, 0, 2]
-                f11 = Pf[k, 1, 1]
-                f12 = Pf[k, 1, 2]
-                f22 = Pf[k, 2, 2]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq02 = f02 - pf02
-                qq11 = f11 - pf11
-                qq12 = f12 - pf12
-                qq22 = f22 - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                pp00 = w00 * a00 + w01 * a01 + w02 * a02
-                pp01 = w00 * a10 + w01 * a11 + w02 * a12
-                pp02 = w00 * a20 + w01 * a21 + w02 * a22
-                pp11 = w10 * a10 + w11 * a11 + w12 * a12
-                pp12 = w10 * a20 + w11 * a21 + w12 * a22
-                pp22 = w20 * a20 + w21 * a21 + w22 * a22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                cc00 = a00 * f00 + a01 * f01 + a02 * f02
-                cc01 = a00 * f01 + a01 * f11 + a02 * f12
-                cc02 = a00 * f02 + a01 * f12 + a02 * f22
-                cc10 = a10 * f00 + a11 * f01 + a12 * f02
-                cc11 = a10 * f01 + a11 * f11 + a12 * f12
-                cc12 = a10 * f02 + a11 * f12 + a12 * f22
-                cc20 = a20 * f00 + a21 * f01 + a22 * f02
-                cc21 = a20 * f01 + a21 * f11 + a22 * f12
-                cc22 = a20 * f02 + a21 * f12 + a22 * f22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                z2 = cc20 - l20 * z0 - l21 * z1
-                gt20 = z2 * iv2
-                gt10 = z1 * iv1 - l21 * gt20
-                gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                z2 = cc21 - l20 * z0 - l21 * z1
-                gt21 = z2 * iv2
-                gt11 = z1 * iv1 - l21 * gt21
-                gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
-                z0 = cc02
-                z1 = cc12 - l10 * z0
-                z2 = cc22 - l20 * z0 - l21 * z1
-                gt22 = z2 * iv2
-                gt12 = z1 * iv1 - l21 * gt22
-                gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1 + a02 * fm2)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1 + a12 * fm2)
-                dd2 = sm2 - (a20 * fm0 + a21 * fm1 + a22 * fm2)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-                nm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp02 = sp02 - pp02
-                dp11 = sp11 - pp11
-                dp12 = sp12 - pp12
-                dp22 = sp22 - pp22
+                gt00 = gain[G_GT + 0, b]
+                gt01 = gain[G_GT + 1, b]
+                gt02 = gain[G_GT + 2, b]
+                gt10 = gain[G_GT + 3, b]
+                gt11 = gain[G_GT + 4, b]
+                gt12 = gain[G_GT + 5, b]
+                gt20 = gain[G_GT + 6, b]
+                gt21 = gain[G_GT + 7, b]
+                gt22 = gain[G_GT + 8, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dd1 = sm1 - gain[G_X + 1, b]
+                dd2 = sm2 - gain[G_X + 2, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                dp01 = sp01 - gain[G_PP + 1, b]
+                dp02 = sp02 - gain[G_PP + 2, b]
+                dp11 = sp11 - gain[G_PP + 3, b]
+                dp12 = sp12 - gain[G_PP + 4, b]
+                dp22 = sp22 - gain[G_PP + 5, b]
+                sm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
+                sm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
+                sm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
                 gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
                 gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
                 gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
@@ -2574,21 +2751,12 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
                 gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
                 gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
                 gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-                np00 = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-                np01 = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-                np02 = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-                np11 = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-                np12 = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-                np22 = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
-                sm0 = nm0
-                sm1 = nm1
-                sm2 = nm2
-                sp00 = np00
-                sp01 = np01
-                sp02 = np02
-                sp11 = np11
-                sp12 = np12
-                sp22 = np22
+                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
+                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
+                sp02 = Pf[k, 0, 2] + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
+                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
+                sp12 = Pf[k, 1, 2] + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
+                sp22 = Pf[k, 2, 2] + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
@@ -2613,42 +2781,70 @@ def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
+    vpf00 = vsplat(pf00)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 1, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 1
+    G_X = 2
+    gain = np.zeros((3, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rp0 = gain[G_PP + 0]
+    rx0 = gain[G_X + 0]
+    ra0 = scratch[ROW_A + 0]
     sm0 = ms[n - 1, 0]
     sp00 = Ps[n - 1, 0, 0]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
+        fill_transition(cnt, trans, scratch, ROW_A)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            va00 = vload(ra0, b)
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vq00 = vsub(vf00, vpf00)
+            vw00 = vmul(va00, vq00)
+            vp00 = vfma(vw00, va00, vpf00)
+            vcc00 = vmul(va00, vf00)
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vz0 = vcc00
+            vg00 = vmul(vz0, viv0)
+            vstore(rg0, b, vg00)
+            vstore(rp0, b, vp00)
+            vstore(rx0, b, vmul(va00, vfm0))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
                 fm0 = mf[k, 0]
-                f00 = Pf[k, 0, 0]
-                qq00 = f00 - pf00
-                w00 = a00 * qq00
-                pp00 = w00 * a00
-                pp00 += pf00
-                cc00 = a00 * f00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = cc00
-                gt00 = z0 * iv0
-                dd0 = sm0 - (a00 * fm0)
-                nm0 = fm0 + gt00 * dd0
-                dp00 = sp00 - pp00
+                gt00 = gain[G_GT + 0, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                sm0 = fm0 + gt00 * dd0
                 gd00 = gt00 * dp00
-                np00 = f00 + gd00 * gt00
-                sm0 = nm0
-                sp00 = np00
+                sp00 = Pf[k, 0, 0] + gd00 * gt00
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             Ps[k, 0, 0] = sp00
@@ -2663,86 +2859,130 @@ def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
     pf11 = pinf[1, 1]
+    vpf00 = vsplat(pf00)
+    vpf01 = vsplat(pf01)
+    vpf11 = vsplat(pf11)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 4, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 4
+    G_X = 7
+    gain = np.zeros((9, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rg1 = gain[G_GT + 1]
+    rg2 = gain[G_GT + 2]
+    rg3 = gain[G_GT + 3]
+    rp0 = gain[G_PP + 0]
+    rp1 = gain[G_PP + 1]
+    rp2 = gain[G_PP + 2]
+    rx0 = gain[G_X + 0]
+    rx1 = gain[G_X + 1]
+    ra0 = scratch[ROW_A + 0]
+    ra1 = scratch[ROW_A + 1]
+    ra2 = scratch[ROW_A + 2]
+    ra3 = scratch[ROW_A + 3]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sp00 = Ps[n - 1, 0, 0]
     sp01 = Ps[n - 1, 0, 1]
     sp11 = Ps[n - 1, 1, 1]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
+        fill_transition(cnt, trans, scratch, ROW_A)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            va00 = vload(ra0, b)
+            va01 = vload(ra1, b)
+            va10 = vload(ra2, b)
+            va11 = vload(ra3, b)
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
+            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+            vq00 = vsub(vf00, vpf00)
+            vq01 = vsub(vf01, vpf01)
+            vq11 = vsub(vf11, vpf11)
+            vw00 = vfma(va00, vq00, vmul(va01, vq01))
+            vw01 = vfma(va00, vq01, vmul(va01, vq11))
+            vw10 = vfma(va10, vq00, vmul(va11, vq01))
+            vw11 = vfma(va10, vq01, vmul(va11, vq11))
+            vp00 = vfma(vw00, va00, vfma(vw01, va01, vpf00))
+            vp01 = vfma(vw00, va10, vfma(vw01, va11, vpf01))
+            vp11 = vfma(vw10, va10, vfma(vw11, va11, vpf11))
+            vcc00 = vfma(va00, vf00, vmul(va01, vf01))
+            vcc01 = vfma(va00, vf01, vmul(va01, vf11))
+            vcc10 = vfma(va10, vf00, vmul(va11, vf01))
+            vcc11 = vfma(va10, vf01, vmul(va11, vf11))
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vl10 = vmul(vp01, viv0)
+            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
+            viv1 = vrecip_pos(vdg1)
+            vz0 = vcc00
+            vz1 = vsub(vcc10, vmul(vl10, vz0))
+            vg10 = vmul(vz1, viv1)
+            vg00 = vsub(vmul(vz0, viv0), vmul(vl10, vg10))
+            vz0 = vcc01
+            vz1 = vsub(vcc11, vmul(vl10, vz0))
+            vg11 = vmul(vz1, viv1)
+            vg01 = vsub(vmul(vz0, viv0), vmul(vl10, vg11))
+            vstore(rg0, b, vg00)
+            vstore(rg1, b, vg01)
+            vstore(rg2, b, vg10)
+            vstore(rg3, b, vg11)
+            vstore(rp0, b, vp00)
+            vstore(rp1, b, vp01)
+            vstore(rp2, b, vp11)
+            vstore(rx0, b, vfma(va00, vfm0, vmul(va01, vfm1)))
+            vstore(rx1, b, vfma(va10, vfm0, vmul(va11, vfm1)))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a10 = work[ROW_A + 2, b]
-                a11 = work[ROW_A + 3, b]
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f11 = Pf[k, 1, 1]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq11 = f11 - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                pp00 = w00 * a00 + w01 * a01
-                pp01 = w00 * a10 + w01 * a11
-                pp11 = w10 * a10 + w11 * a11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                cc00 = a00 * f00 + a01 * f01
-                cc01 = a00 * f01 + a01 * f11
-                cc10 = a10 * f00 + a11 * f01
-                cc11 = a10 * f01 + a11 * f11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                gt10 = z1 * iv1
-                gt00 = z0 * iv0 - l10 * gt10
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                gt11 = z1 * iv1
-                gt01 = z0 * iv0 - l10 * gt11
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp11 = sp11 - pp11
+                gt00 = gain[G_GT + 0, b]
+                gt01 = gain[G_GT + 1, b]
+                gt10 = gain[G_GT + 2, b]
+                gt11 = gain[G_GT + 3, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dd1 = sm1 - gain[G_X + 1, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                dp01 = sp01 - gain[G_PP + 1, b]
+                dp11 = sp11 - gain[G_PP + 2, b]
+                sm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                sm1 = fm1 + gt01 * dd0 + gt11 * dd1
                 gd00 = gt00 * dp00 + gt10 * dp01
                 gd01 = gt00 * dp01 + gt10 * dp11
                 gd10 = gt01 * dp00 + gt11 * dp01
                 gd11 = gt01 * dp01 + gt11 * dp11
-                np00 = f00 + gd00 * gt00 + gd01 * gt10
-                np01 = f01 + gd00 * gt01 + gd01 * gt11
-                np11 = f11 + gd10 * gt01 + gd11 * gt11
-                sm0 = nm0
-                sm1 = nm1
-                sp00 = np00
-                sp01 = np01
-                sp11 = np11
+                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10
+                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11
+                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
@@ -2761,6 +3001,14 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+
+    Per block of ``work.shape[1]`` steps, first the gains of every step, four
+    steps at a time in vector lanes (they do not depend on the recursion),
+    then the backward recursion reading them. Only the width of ``work`` is
+    used: the smoother keeps transitions and gains in its own scratch, padded
+    to whole groups of four, so every step takes the same lane arithmetic
+    whatever the block boundaries (a lean posterior's blocks then reproduce
+    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
@@ -2769,6 +3017,48 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     pf11 = pinf[1, 1]
     pf12 = pinf[1, 2]
     pf22 = pinf[2, 2]
+    vpf00 = vsplat(pf00)
+    vpf01 = vsplat(pf01)
+    vpf02 = vsplat(pf02)
+    vpf11 = vsplat(pf11)
+    vpf12 = vsplat(pf12)
+    vpf22 = vsplat(pf22)
+    block = work.shape[1]
+    width = (block + 3) // 4 * 4
+    scratch = np.zeros((ROW_A + 9, width))
+    dtr = scratch[ROW_DT]
+    G_GT = 0
+    G_PP = 9
+    G_X = 15
+    gain = np.zeros((18, width))
+    # row views once, outside the loops (a view per step costs reference counts)
+    rg0 = gain[G_GT + 0]
+    rg1 = gain[G_GT + 1]
+    rg2 = gain[G_GT + 2]
+    rg3 = gain[G_GT + 3]
+    rg4 = gain[G_GT + 4]
+    rg5 = gain[G_GT + 5]
+    rg6 = gain[G_GT + 6]
+    rg7 = gain[G_GT + 7]
+    rg8 = gain[G_GT + 8]
+    rp0 = gain[G_PP + 0]
+    rp1 = gain[G_PP + 1]
+    rp2 = gain[G_PP + 2]
+    rp3 = gain[G_PP + 3]
+    rp4 = gain[G_PP + 4]
+    rp5 = gain[G_PP + 5]
+    rx0 = gain[G_X + 0]
+    rx1 = gain[G_X + 1]
+    rx2 = gain[G_X + 2]
+    ra0 = scratch[ROW_A + 0]
+    ra1 = scratch[ROW_A + 1]
+    ra2 = scratch[ROW_A + 2]
+    ra3 = scratch[ROW_A + 3]
+    ra4 = scratch[ROW_A + 4]
+    ra5 = scratch[ROW_A + 5]
+    ra6 = scratch[ROW_A + 6]
+    ra7 = scratch[ROW_A + 7]
+    ra8 = scratch[ROW_A + 8]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sm2 = ms[n - 1, 2]
@@ -2778,111 +3068,139 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     sp11 = Ps[n - 1, 1, 1]
     sp12 = Ps[n - 1, 1, 2]
     sp22 = Ps[n - 1, 2, 2]
-    block = work.shape[1]
-    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
+        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
+        fill_transition(cnt, trans, scratch, ROW_A)
+        for b in range(0, cnt, 4):
+            k0 = begin + b
+            k1 = min(k0 + 1, last)
+            k2 = min(k0 + 2, last)
+            k3 = min(k0 + 3, last)
+            va00 = vload(ra0, b)
+            va01 = vload(ra1, b)
+            va02 = vload(ra2, b)
+            va10 = vload(ra3, b)
+            va11 = vload(ra4, b)
+            va12 = vload(ra5, b)
+            va20 = vload(ra6, b)
+            va21 = vload(ra7, b)
+            va22 = vload(ra8, b)
+            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
+            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
+            vf02 = (Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2])
+            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
+            vf12 = (Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2])
+            vf22 = (Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2])
+            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+            vfm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+            vq00 = vsub(vf00, vpf00)
+            vq01 = vsub(vf01, vpf01)
+            vq02 = vsub(vf02, vpf02)
+            vq11 = vsub(vf11, vpf11)
+            vq12 = vsub(vf12, vpf12)
+            vq22 = vsub(vf22, vpf22)
+            vw00 = vfma(va00, vq00, vfma(va01, vq01, vmul(va02, vq02)))
+            vw01 = vfma(va00, vq01, vfma(va01, vq11, vmul(va02, vq12)))
+            vw02 = vfma(va00, vq02, vfma(va01, vq12, vmul(va02, vq22)))
+            vw10 = vfma(va10, vq00, vfma(va11, vq01, vmul(va12, vq02)))
+            vw11 = vfma(va10, vq01, vfma(va11, vq11, vmul(va12, vq12)))
+            vw12 = vfma(va10, vq02, vfma(va11, vq12, vmul(va12, vq22)))
+            vw20 = vfma(va20, vq00, vfma(va21, vq01, vmul(va22, vq02)))
+            vw21 = vfma(va20, vq01, vfma(va21, vq11, vmul(va22, vq12)))
+            vw22 = vfma(va20, vq02, vfma(va21, vq12, vmul(va22, vq22)))
+            vp00 = vfma(vw00, va00, vfma(vw01, va01, vfma(vw02, va02, vpf00)))
+            vp01 = vfma(vw00, va10, vfma(vw01, va11, vfma(vw02, va12, vpf01)))
+            vp02 = vfma(vw00, va20, vfma(vw01, va21, vfma(vw02, va22, vpf02)))
+            vp11 = vfma(vw10, va10, vfma(vw11, va11, vfma(vw12, va12, vpf11)))
+            vp12 = vfma(vw10, va20, vfma(vw11, va21, vfma(vw12, va22, vpf12)))
+            vp22 = vfma(vw20, va20, vfma(vw21, va21, vfma(vw22, va22, vpf22)))
+            vcc00 = vfma(va00, vf00, vfma(va01, vf01, vmul(va02, vf02)))
+            vcc01 = vfma(va00, vf01, vfma(va01, vf11, vmul(va02, vf12)))
+            vcc02 = vfma(va00, vf02, vfma(va01, vf12, vmul(va02, vf22)))
+            vcc10 = vfma(va10, vf00, vfma(va11, vf01, vmul(va12, vf02)))
+            vcc11 = vfma(va10, vf01, vfma(va11, vf11, vmul(va12, vf12)))
+            vcc12 = vfma(va10, vf02, vfma(va11, vf12, vmul(va12, vf22)))
+            vcc20 = vfma(va20, vf00, vfma(va21, vf01, vmul(va22, vf02)))
+            vcc21 = vfma(va20, vf01, vfma(va21, vf11, vmul(va22, vf12)))
+            vcc22 = vfma(va20, vf02, vfma(va21, vf12, vmul(va22, vf22)))
+            vdg0 = vp00
+            viv0 = vrecip_pos(vdg0)
+            vl10 = vmul(vp01, viv0)
+            vl20 = vmul(vp02, viv0)
+            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
+            viv1 = vrecip_pos(vdg1)
+            vl21 = vmul(vsub(vp12, vmul(vl20, vmul(vl10, vdg0))), viv1)
+            vdg2 = vsub(vp22, vfma(vl20, vmul(vl20, vdg0), vmul(vl21, vmul(vl21, vdg1))))
+            viv2 = vrecip_pos(vdg2)
+            vz0 = vcc00
+            vz1 = vsub(vcc10, vmul(vl10, vz0))
+            vz2 = vsub(vcc20, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg20 = vmul(vz2, viv2)
+            vg10 = vsub(vmul(vz1, viv1), vmul(vl21, vg20))
+            vg00 = vsub(vmul(vz0, viv0), vfma(vl10, vg10, vmul(vl20, vg20)))
+            vz0 = vcc01
+            vz1 = vsub(vcc11, vmul(vl10, vz0))
+            vz2 = vsub(vcc21, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg21 = vmul(vz2, viv2)
+            vg11 = vsub(vmul(vz1, viv1), vmul(vl21, vg21))
+            vg01 = vsub(vmul(vz0, viv0), vfma(vl10, vg11, vmul(vl20, vg21)))
+            vz0 = vcc02
+            vz1 = vsub(vcc12, vmul(vl10, vz0))
+            vz2 = vsub(vcc22, vfma(vl20, vz0, vmul(vl21, vz1)))
+            vg22 = vmul(vz2, viv2)
+            vg12 = vsub(vmul(vz1, viv1), vmul(vl21, vg22))
+            vg02 = vsub(vmul(vz0, viv0), vfma(vl10, vg12, vmul(vl20, vg22)))
+            vstore(rg0, b, vg00)
+            vstore(rg1, b, vg01)
+            vstore(rg2, b, vg02)
+            vstore(rg3, b, vg10)
+            vstore(rg4, b, vg11)
+            vstore(rg5, b, vg12)
+            vstore(rg6, b, vg20)
+            vstore(rg7, b, vg21)
+            vstore(rg8, b, vg22)
+            vstore(rp0, b, vp00)
+            vstore(rp1, b, vp01)
+            vstore(rp2, b, vp02)
+            vstore(rp3, b, vp11)
+            vstore(rp4, b, vp12)
+            vstore(rp5, b, vp22)
+            vstore(rx0, b, vfma(va00, vfm0, vfma(va01, vfm1, vmul(va02, vfm2))))
+            vstore(rx1, b, vfma(va10, vfm0, vfma(va11, vfm1, vmul(va12, vfm2))))
+            vstore(rx2, b, vfma(va20, vfm0, vfma(va21, vfm1, vmul(va22, vfm2))))
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a02 = work[ROW_A + 2, b]
-                a10 = work[ROW_A + 3, b]
-                a11 = work[ROW_A + 4, b]
-                a12 = work[ROW_A + 5, b]
-                a20 = work[ROW_A + 6, b]
-                a21 = work[ROW_A + 7, b]
-                a22 = work[ROW_A + 8, b]
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
                 fm2 = mf[k, 2]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f02 = Pf[k, 0, 2]
-                f11 = Pf[k, 1, 1]
-                f12 = Pf[k, 1, 2]
-                f22 = Pf[k, 2, 2]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq02 = f02 - pf02
-                qq11 = f11 - pf11
-                qq12 = f12 - pf12
-                qq22 = f22 - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                pp00 = w00 * a00 + w01 * a01 + w02 * a02
-                pp01 = w00 * a10 + w01 * a11 + w02 * a12
-                pp02 = w00 * a20 + w01 * a21 + w02 * a22
-                pp11 = w10 * a10 + w11 * a11 + w12 * a12
-                pp12 = w10 * a20 + w11 * a21 + w12 * a22
-                pp22 = w20 * a20 + w21 * a21 + w22 * a22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                cc00 = a00 * f00 + a01 * f01 + a02 * f02
-                cc01 = a00 * f01 + a01 * f11 + a02 * f12
-                cc02 = a00 * f02 + a01 * f12 + a02 * f22
-                cc10 = a10 * f00 + a11 * f01 + a12 * f02
-                cc11 = a10 * f01 + a11 * f11 + a12 * f12
-                cc12 = a10 * f02 + a11 * f12 + a12 * f22
-                cc20 = a20 * f00 + a21 * f01 + a22 * f02
-                cc21 = a20 * f01 + a21 * f11 + a22 * f12
-                cc22 = a20 * f02 + a21 * f12 + a22 * f22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                z2 = cc20 - l20 * z0 - l21 * z1
-                gt20 = z2 * iv2
-                gt10 = z1 * iv1 - l21 * gt20
-                gt00 = z0 * iv0 - l10 * gt10 - l20 * gt20
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                z2 = cc21 - l20 * z0 - l21 * z1
-                gt21 = z2 * iv2
-                gt11 = z1 * iv1 - l21 * gt21
-                gt01 = z0 * iv0 - l10 * gt11 - l20 * gt21
-                z0 = cc02
-                z1 = cc12 - l10 * z0
-                z2 = cc22 - l20 * z0 - l21 * z1
-                gt22 = z2 * iv2
-                gt12 = z1 * iv1 - l21 * gt22
-                gt02 = z0 * iv0 - l10 * gt12 - l20 * gt22
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1 + a02 * fm2)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1 + a12 * fm2)
-                dd2 = sm2 - (a20 * fm0 + a21 * fm1 + a22 * fm2)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-                nm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp02 = sp02 - pp02
-                dp11 = sp11 - pp11
-                dp12 = sp12 - pp12
-                dp22 = sp22 - pp22
+                gt00 = gain[G_GT + 0, b]
+                gt01 = gain[G_GT + 1, b]
+                gt02 = gain[G_GT + 2, b]
+                gt10 = gain[G_GT + 3, b]
+                gt11 = gain[G_GT + 4, b]
+                gt12 = gain[G_GT + 5, b]
+                gt20 = gain[G_GT + 6, b]
+                gt21 = gain[G_GT + 7, b]
+                gt22 = gain[G_GT + 8, b]
+                dd0 = sm0 - gain[G_X + 0, b]
+                dd1 = sm1 - gain[G_X + 1, b]
+                dd2 = sm2 - gain[G_X + 2, b]
+                dp00 = sp00 - gain[G_PP + 0, b]
+                dp01 = sp01 - gain[G_PP + 1, b]
+                dp02 = sp02 - gain[G_PP + 2, b]
+                dp11 = sp11 - gain[G_PP + 3, b]
+                dp12 = sp12 - gain[G_PP + 4, b]
+                dp22 = sp22 - gain[G_PP + 5, b]
+                sm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
+                sm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
+                sm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
                 gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
                 gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
                 gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
@@ -2892,21 +3210,12 @@ def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
                 gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
                 gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
                 gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-                np00 = f00 + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-                np01 = f01 + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-                np02 = f02 + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-                np11 = f11 + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-                np12 = f12 + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-                np22 = f22 + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
-                sm0 = nm0
-                sm1 = nm1
-                sm2 = nm2
-                sp00 = np00
-                sp01 = np01
-                sp02 = np02
-                sp11 = np11
-                sp12 = np12
-                sp22 = np22
+                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
+                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
+                sp02 = Pf[k, 0, 2] + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
+                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
+                sp12 = Pf[k, 1, 2] + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
+                sp22 = Pf[k, 2, 2] + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
