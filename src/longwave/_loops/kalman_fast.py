@@ -2248,75 +2248,46 @@ def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
-    vpf00 = vsplat(pf00)
-    vc000 = vsplat(c000)
-    block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 1, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 1
-    G_X = 2
-    gain = np.zeros((3, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rp0 = gain[G_PP + 0]
-    rx0 = gain[G_X + 0]
-    re = scratch[ROW_E]
     sm0 = ms[n - 1, 0]
     sp00 = Ps[n - 1, 0, 0]
+    block = work.shape[1]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, scratch)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            ve = vload(re, b)
-            va00 = vmul(ve, vc000)
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vq00 = vsub(vf00, vpf00)
-            vw00 = vmul(va00, vq00)
-            vp00 = vfma(vw00, va00, vpf00)
-            vcc00 = vmul(va00, vf00)
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vz0 = vcc00
-            vg00 = vmul(vz0, viv0)
-            vstore(rg0, b, vg00)
-            vstore(rp0, b, vp00)
-            vstore(rx0, b, vmul(va00, vfm0))
+        fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                a00 = ee * (c000)
                 fm0 = mf[k, 0]
-                gt00 = gain[G_GT + 0, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                sm0 = fm0 + gt00 * dd0
+                f00 = Pf[k, 0, 0]
+                qq00 = f00 - pf00
+                w00 = a00 * qq00
+                pp00 = w00 * a00
+                pp00 += pf00
+                cc00 = a00 * f00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = cc00
+                gt00 = z0 * iv0
+                dd0 = sm0 - (a00 * fm0)
+                nm0 = fm0 + gt00 * dd0
+                dp00 = sp00 - pp00
                 gd00 = gt00 * dp00
-                sp00 = Pf[k, 0, 0] + gd00 * gt00
+                np00 = f00 + gd00 * gt00
+                sm0 = nm0
+                sp00 = np00
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             Ps[k, 0, 0] = sp00
@@ -2331,14 +2302,6 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
@@ -2354,125 +2317,83 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c101 = coef[0, 1, 0, 1]
     c110 = coef[0, 1, 1, 0]
     c111 = coef[0, 1, 1, 1]
-    vpf00 = vsplat(pf00)
-    vpf01 = vsplat(pf01)
-    vpf11 = vsplat(pf11)
-    vc000 = vsplat(c000)
-    vc001 = vsplat(c001)
-    vc010 = vsplat(c010)
-    vc011 = vsplat(c011)
-    vc100 = vsplat(c100)
-    vc101 = vsplat(c101)
-    vc110 = vsplat(c110)
-    vc111 = vsplat(c111)
-    block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 4, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 4
-    G_X = 7
-    gain = np.zeros((9, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rg1 = gain[G_GT + 1]
-    rg2 = gain[G_GT + 2]
-    rg3 = gain[G_GT + 3]
-    rp0 = gain[G_PP + 0]
-    rp1 = gain[G_PP + 1]
-    rp2 = gain[G_PP + 2]
-    rx0 = gain[G_X + 0]
-    rx1 = gain[G_X + 1]
-    re = scratch[ROW_E]
-    rh = scratch[ROW_DT]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sp00 = Ps[n - 1, 0, 0]
     sp01 = Ps[n - 1, 0, 1]
     sp11 = Ps[n - 1, 1, 1]
+    block = work.shape[1]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, scratch)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            ve = vload(re, b)
-            vh = vload(rh, b)
-            va00 = vmul(ve, vfma(vh, vc100, vc000))
-            va01 = vmul(ve, vfma(vh, vc101, vc001))
-            va10 = vmul(ve, vfma(vh, vc110, vc010))
-            va11 = vmul(ve, vfma(vh, vc111, vc011))
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
-            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-            vq00 = vsub(vf00, vpf00)
-            vq01 = vsub(vf01, vpf01)
-            vq11 = vsub(vf11, vpf11)
-            vw00 = vfma(va00, vq00, vmul(va01, vq01))
-            vw01 = vfma(va00, vq01, vmul(va01, vq11))
-            vw10 = vfma(va10, vq00, vmul(va11, vq01))
-            vw11 = vfma(va10, vq01, vmul(va11, vq11))
-            vp00 = vfma(vw00, va00, vfma(vw01, va01, vpf00))
-            vp01 = vfma(vw00, va10, vfma(vw01, va11, vpf01))
-            vp11 = vfma(vw10, va10, vfma(vw11, va11, vpf11))
-            vcc00 = vfma(va00, vf00, vmul(va01, vf01))
-            vcc01 = vfma(va00, vf01, vmul(va01, vf11))
-            vcc10 = vfma(va10, vf00, vmul(va11, vf01))
-            vcc11 = vfma(va10, vf01, vmul(va11, vf11))
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vl10 = vmul(vp01, viv0)
-            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
-            viv1 = vrecip_pos(vdg1)
-            vz0 = vcc00
-            vz1 = vsub(vcc10, vmul(vl10, vz0))
-            vg10 = vmul(vz1, viv1)
-            vg00 = vsub(vmul(vz0, viv0), vmul(vl10, vg10))
-            vz0 = vcc01
-            vz1 = vsub(vcc11, vmul(vl10, vz0))
-            vg11 = vmul(vz1, viv1)
-            vg01 = vsub(vmul(vz0, viv0), vmul(vl10, vg11))
-            vstore(rg0, b, vg00)
-            vstore(rg1, b, vg01)
-            vstore(rg2, b, vg10)
-            vstore(rg3, b, vg11)
-            vstore(rp0, b, vp00)
-            vstore(rp1, b, vp01)
-            vstore(rp2, b, vp11)
-            vstore(rx0, b, vfma(va00, vfm0, vmul(va01, vfm1)))
-            vstore(rx1, b, vfma(va10, vfm0, vmul(va11, vfm1)))
+        fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
-                gt00 = gain[G_GT + 0, b]
-                gt01 = gain[G_GT + 1, b]
-                gt10 = gain[G_GT + 2, b]
-                gt11 = gain[G_GT + 3, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dd1 = sm1 - gain[G_X + 1, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                dp01 = sp01 - gain[G_PP + 1, b]
-                dp11 = sp11 - gain[G_PP + 2, b]
-                sm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                sm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f11 = Pf[k, 1, 1]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq11 = f11 - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                pp00 = w00 * a00 + w01 * a01
+                pp01 = w00 * a10 + w01 * a11
+                pp11 = w10 * a10 + w11 * a11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                cc00 = a00 * f00 + a01 * f01
+                cc01 = a00 * f01 + a01 * f11
+                cc10 = a10 * f00 + a11 * f01
+                cc11 = a10 * f01 + a11 * f11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                gt10 = z1 * iv1
+                gt00 = z0 * iv0 - l10 * gt10
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                gt11 = z1 * iv1
+                gt01 = z0 * iv0 - l10 * gt11
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp11 = sp11 - pp11
                 gd00 = gt00 * dp00 + gt10 * dp01
                 gd01 = gt00 * dp01 + gt10 * dp11
                 gd10 = gt01 * dp00 + gt11 * dp01
                 gd11 = gt01 * dp01 + gt11 * dp11
-                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10
-                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11
-                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11
+                np00 = f00 + gd00 * gt00 + gd01 * gt10
+                np01 = f01 + gd00 * gt01 + gd01 * gt11
+                np11 = f11 + gd10 * gt01 + gd11 * gt11
+                sm0 = nm0
+                sm1 = nm1
+                sp00 = np00
+                sp01 = np01
+                sp11 = np11
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
@@ -2781,70 +2702,42 @@ def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
-    vpf00 = vsplat(pf00)
-    block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 1, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 1
-    G_X = 2
-    gain = np.zeros((3, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rp0 = gain[G_PP + 0]
-    rx0 = gain[G_X + 0]
-    ra0 = scratch[ROW_A + 0]
     sm0 = ms[n - 1, 0]
     sp00 = Ps[n - 1, 0, 0]
+    block = work.shape[1]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, scratch, ROW_A)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            va00 = vload(ra0, b)
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vq00 = vsub(vf00, vpf00)
-            vw00 = vmul(va00, vq00)
-            vp00 = vfma(vw00, va00, vpf00)
-            vcc00 = vmul(va00, vf00)
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vz0 = vcc00
-            vg00 = vmul(vz0, viv0)
-            vstore(rg0, b, vg00)
-            vstore(rp0, b, vp00)
-            vstore(rx0, b, vmul(va00, vfm0))
+        fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
                 fm0 = mf[k, 0]
-                gt00 = gain[G_GT + 0, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                sm0 = fm0 + gt00 * dd0
+                f00 = Pf[k, 0, 0]
+                qq00 = f00 - pf00
+                w00 = a00 * qq00
+                pp00 = w00 * a00
+                pp00 += pf00
+                cc00 = a00 * f00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = cc00
+                gt00 = z0 * iv0
+                dd0 = sm0 - (a00 * fm0)
+                nm0 = fm0 + gt00 * dd0
+                dp00 = sp00 - pp00
                 gd00 = gt00 * dp00
-                sp00 = Pf[k, 0, 0] + gd00 * gt00
+                np00 = f00 + gd00 * gt00
+                sm0 = nm0
+                sp00 = np00
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             Ps[k, 0, 0] = sp00
@@ -2859,130 +2752,86 @@ def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
     filtered one for a whole series, a checkpoint for a block of it). The
     smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
     """
     n = t.size
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
     pf11 = pinf[1, 1]
-    vpf00 = vsplat(pf00)
-    vpf01 = vsplat(pf01)
-    vpf11 = vsplat(pf11)
-    block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 4, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 4
-    G_X = 7
-    gain = np.zeros((9, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rg1 = gain[G_GT + 1]
-    rg2 = gain[G_GT + 2]
-    rg3 = gain[G_GT + 3]
-    rp0 = gain[G_PP + 0]
-    rp1 = gain[G_PP + 1]
-    rp2 = gain[G_PP + 2]
-    rx0 = gain[G_X + 0]
-    rx1 = gain[G_X + 1]
-    ra0 = scratch[ROW_A + 0]
-    ra1 = scratch[ROW_A + 1]
-    ra2 = scratch[ROW_A + 2]
-    ra3 = scratch[ROW_A + 3]
     sm0 = ms[n - 1, 0]
     sm1 = ms[n - 1, 1]
     sp00 = Ps[n - 1, 0, 0]
     sp01 = Ps[n - 1, 0, 1]
     sp11 = Ps[n - 1, 1, 1]
+    block = work.shape[1]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, scratch, ROW_A)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            va00 = vload(ra0, b)
-            va01 = vload(ra1, b)
-            va10 = vload(ra2, b)
-            va11 = vload(ra3, b)
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
-            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-            vq00 = vsub(vf00, vpf00)
-            vq01 = vsub(vf01, vpf01)
-            vq11 = vsub(vf11, vpf11)
-            vw00 = vfma(va00, vq00, vmul(va01, vq01))
-            vw01 = vfma(va00, vq01, vmul(va01, vq11))
-            vw10 = vfma(va10, vq00, vmul(va11, vq01))
-            vw11 = vfma(va10, vq01, vmul(va11, vq11))
-            vp00 = vfma(vw00, va00, vfma(vw01, va01, vpf00))
-            vp01 = vfma(vw00, va10, vfma(vw01, va11, vpf01))
-            vp11 = vfma(vw10, va10, vfma(vw11, va11, vpf11))
-            vcc00 = vfma(va00, vf00, vmul(va01, vf01))
-            vcc01 = vfma(va00, vf01, vmul(va01, vf11))
-            vcc10 = vfma(va10, vf00, vmul(va11, vf01))
-            vcc11 = vfma(va10, vf01, vmul(va11, vf11))
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vl10 = vmul(vp01, viv0)
-            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
-            viv1 = vrecip_pos(vdg1)
-            vz0 = vcc00
-            vz1 = vsub(vcc10, vmul(vl10, vz0))
-            vg10 = vmul(vz1, viv1)
-            vg00 = vsub(vmul(vz0, viv0), vmul(vl10, vg10))
-            vz0 = vcc01
-            vz1 = vsub(vcc11, vmul(vl10, vz0))
-            vg11 = vmul(vz1, viv1)
-            vg01 = vsub(vmul(vz0, viv0), vmul(vl10, vg11))
-            vstore(rg0, b, vg00)
-            vstore(rg1, b, vg01)
-            vstore(rg2, b, vg10)
-            vstore(rg3, b, vg11)
-            vstore(rp0, b, vp00)
-            vstore(rp1, b, vp01)
-            vstore(rp2, b, vp11)
-            vstore(rx0, b, vfma(va00, vfm0, vmul(va01, vfm1)))
-            vstore(rx1, b, vfma(va10, vfm0, vmul(va11, vfm1)))
+        fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
             if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
                 fm0 = mf[k, 0]
                 fm1 = mf[k, 1]
-                gt00 = gain[G_GT + 0, b]
-                gt01 = gain[G_GT + 1, b]
-                gt10 = gain[G_GT + 2, b]
-                gt11 = gain[G_GT + 3, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dd1 = sm1 - gain[G_X + 1, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                dp01 = sp01 - gain[G_PP + 1, b]
-                dp11 = sp11 - gain[G_PP + 2, b]
-                sm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                sm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                f00 = Pf[k, 0, 0]
+                f01 = Pf[k, 0, 1]
+                f11 = Pf[k, 1, 1]
+                qq00 = f00 - pf00
+                qq01 = f01 - pf01
+                qq11 = f11 - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                pp00 = w00 * a00 + w01 * a01
+                pp01 = w00 * a10 + w01 * a11
+                pp11 = w10 * a10 + w11 * a11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                cc00 = a00 * f00 + a01 * f01
+                cc01 = a00 * f01 + a01 * f11
+                cc10 = a10 * f00 + a11 * f01
+                cc11 = a10 * f01 + a11 * f11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = cc00
+                z1 = cc10 - l10 * z0
+                gt10 = z1 * iv1
+                gt00 = z0 * iv0 - l10 * gt10
+                z0 = cc01
+                z1 = cc11 - l10 * z0
+                gt11 = z1 * iv1
+                gt01 = z0 * iv0 - l10 * gt11
+                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
+                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
+                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
+                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
+                dp00 = sp00 - pp00
+                dp01 = sp01 - pp01
+                dp11 = sp11 - pp11
                 gd00 = gt00 * dp00 + gt10 * dp01
                 gd01 = gt00 * dp01 + gt10 * dp11
                 gd10 = gt01 * dp00 + gt11 * dp01
                 gd11 = gt01 * dp01 + gt11 * dp11
-                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10
-                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11
-                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11
+                np00 = f00 + gd00 * gt00 + gd01 * gt10
+                np01 = f01 + gd00 * gt01 + gd01 * gt11
+                np11 = f11 + gd10 * gt01 + gd11 * gt11
+                sm0 = nm0
+                sm1 = nm1
+                sp00 = np00
+                sp01 = np01
+                sp11 = np11
             # (a repeated time keeps the state: one state, conditioned on every copy)
             ms[k, 0] = sm0
             ms[k, 1] = sm1
