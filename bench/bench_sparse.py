@@ -5,8 +5,10 @@ half a minute). Every figure is measured in fresh subprocesses and reported
 as ratios side by side from one run, because the machine is shared:
 
 1. speed: VFE log marginal likelihood + gradient at n = 1e6 (1e5 quick) for
-   m = 64, 256, 1024, split into kernel-block evaluation (numba) and the rest
-   (BLAS products and m-by-m algebra); throughput as the ratio
+   m = 64, 256, 1024, with support windows (the default) and without
+   (``windows=False``: every block in full, as for a kernel without finite
+   support), each with the time spent in kernel-block evaluation (numba);
+   throughput as the ratio
    ``time(numpy A.T @ A over the same (chunk, m) blocks) / time(evaluation)``;
    FITC beside it;
 2. memory: peak traced allocations (tracemalloc) and peak RSS
@@ -55,68 +57,85 @@ def _problem(n, m):
     return source, model
 
 
+class _BlockTimer:
+    """Times the block evaluator's numba calls inside real evaluations (bench only)."""
+
+    def __init__(self, blocks):
+        self.blocks, self.seconds = blocks, 0.0
+
+    def _timed(self, name, *args, **kwargs):
+        t0 = time.perf_counter()
+        out = getattr(self.blocks, name)(*args, **kwargs)
+        self.seconds += time.perf_counter() - t0
+        return out
+
+    def block(self, *args, **kwargs):
+        return self._timed("block", *args, **kwargs)
+
+    def contract(self, *args, **kwargs):
+        return self._timed("contract", *args, **kwargs)
+
+    def square(self, *args, **kwargs):
+        return self._timed("square", *args, **kwargs)
+
+    def contract_square(self, *args, **kwargs):
+        return self._timed("contract_square", *args, **kwargs)
+
+
 def child_speed(n, m, repeats, with_fitc):
     # longwave first: it sets the thread-waiting variables before numpy loads BLAS
     import longwave  # noqa: F401, I001
     import numpy as np
 
     from longwave._config import settings
-    from longwave.methods import FITC, VFE
+    from longwave.methods import FITC, VFE, sparse
+    from longwave.methods.sparse_windows import size
 
     source, model = _problem(n, m)
     chunk = settings().sparse_chunk(m)
-    vfe = VFE(inducing=m, placement="uniform").placed(model, source)
-    z = np.asarray(vfe.inducing)
-    setup = vfe._setup(model, z)
-    vfe.evaluate(model, source, gradient=True)  # compile and warm up
+    z = np.asarray(VFE(inducing=m, placement="uniform").placed(model, source).inducing)
+    timers = []
+    real_setup = sparse.SparseMethod._setup
 
-    def best(fn):
-        times = []
+    def timed_setup(self, model_, z_):  # wrap the block evaluator of every evaluation
+        st = real_setup(self, model_, z_)
+        timers.append(_BlockTimer(st.blocks))
+        return type(st)(**{**st.__dict__, "blocks": timers[-1]})
+
+    sparse.SparseMethod._setup = timed_setup
+
+    def best(method):
+        method.evaluate(model, source, gradient=True)  # compile and warm up
+        runs = []
         for _ in range(repeats):
             t0 = time.perf_counter()
-            fn()
-            times.append(time.perf_counter() - t0)
-        return min(times)
+            method.evaluate(model, source, gradient=True)
+            runs.append((time.perf_counter() - t0, timers[-1].seconds))
+        return min(runs)
 
-    t_vfe = best(lambda: vfe.evaluate(model, source, gradient=True))
-    data = [source.read(lo, hi) for lo, hi in source.ranges(chunk)][:4]
-
-    def blocks_only():  # what the two passes spend in numba: 2 blocks + 1 contraction per chunk
-        grad, gz = np.zeros(2), np.zeros(m)
-        for lo, _ in source.ranges(chunk):
-            t = data[(lo // chunk) % len(data)][0]
-            blk = setup.blocks.block(z, t, np.ones(t.size))
-            setup.blocks.block(z, t, np.ones(t.size), out=blk)
-            setup.blocks.contract(z, t, blk, False, grad, gz)
-
-    t_blocks = best(blocks_only)
     a = np.random.default_rng(0).standard_normal((chunk, m))
 
-    def reference():  # numpy A.T @ A over the same (chunk, m) shapes
-        for _ in source.ranges(chunk):
-            a.T @ a
+    def reference():  # numpy A.T @ A over the same (chunk, m) shapes, the whole series
+        runs = []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            for _ in source.ranges(chunk):
+                a.T @ a
+            runs.append(time.perf_counter() - t0)
+        return min(runs)
 
-    t_ref = best(reference)
-    from scipy.linalg import blas
-
-    kb = np.random.default_rng(1).standard_normal((m, chunk))
-    g = np.random.default_rng(2).standard_normal((m, m))
-    lf = np.asfortranarray(np.tril(g) + m * np.eye(m))
-
-    def same_ops():  # the BLAS calls of one VFE evaluation, without kernels or Python
-        for _ in source.ranges(chunk):
-            wa = blas.dtrmm(1.0, lf, kb.T, side=1, lower=1, trans_a=1).T  # whiten
-            wa @ wa.T  # value pass: syrk
-            g @ kb  # gradient pass: one general product
-
-    t_ops = best(same_ops)
-    out = {"n": n, "m": m, "chunk": chunk, "vfe_s": t_vfe, "blocks_s": t_blocks,
-           "rest_s": t_vfe - t_blocks, "syrk_s": t_ref, "ratio": t_ref / t_vfe,
-           "ops_s": t_ops, "ops_ratio": t_ops / t_vfe}
+    out = {"n": n, "m": m, "chunk": chunk}
+    out["syrk_s"] = reference()
+    out["vfe_s"], out["blocks_s"] = best(VFE(inducing=z))
+    out["vfe_full_s"], out["blocks_full_s"] = best(VFE(inducing=z, windows=False))
+    setup = real_setup(VFE(inducing=z), model, z)
+    out["raw"] = bool(setup.raw)
+    widths = [size(setup.windows.find(source.read(lo, hi)[0]), m)
+              for lo, hi in source.ranges(chunk)]
+    out["window_mean"] = float(np.mean(widths))
     if with_fitc:
-        fitc = FITC(inducing=z)
-        fitc.evaluate(model, source, gradient=True)
-        out["fitc_s"] = best(lambda: fitc.evaluate(model, source, gradient=True))
+        out["fitc_s"], _ = best(FITC(inducing=z))
+        out["fitc_full_s"], _ = best(FITC(inducing=z, windows=False))
     return out
 
 
@@ -167,17 +186,22 @@ def main(argv=None):
     ms = (64, 256) if opts.quick else (64, 256, 1024)
     print(f"# sparse benchmark ({'quick' if opts.quick else 'full'}); machine shared: read ratios")
     print("\n## speed: VFE lml + gradient (and FITC), seconds per evaluation")
-    print("ratio = A.T@A time / VFE time; ops ratio = time of VFE's own BLAS calls on the same")
-    print("shapes (trmm + syrk + gemm per chunk, no kernels) / VFE time")
-    print(f"{'n':>9} {'m':>5} {'chunk':>6} {'VFE s':>8} {'blocks s':>9} {'BLAS+rest':>9} "
-          f"{'A.T@A s':>8} {'ratio':>6} {'ops s':>7} {'ops ratio':>9} {'FITC s':>7} "
-          f"{'FITC/VFE':>8}")
+    print("default = support windows + raw accumulation where Kuu is well conditioned;")
+    print("full = windows=False (every block evaluated and whitened: what a kernel with")
+    print("no finite support, such as a periodic one, costs). ratio = A.T@A time / VFE time,")
+    print("A.T@A over the same (chunk, m) shapes for the whole series, in the same run.")
+    print(f"{'n':>9} {'m':>5} {'window':>6} {'raw':>4} {'VFE s':>7} {'blocks':>7} "
+          f"{'A.T@A s':>8} {'ratio':>6} {'full s':>7} {'blocks':>7} {'ratio':>6} "
+          f"{'FITC s':>7} {'F/V':>5} {'FITCfull':>8} {'F/V':>5}")
     for m in ms:
         r = run_child({"kind": "speed", "n": n, "m": m, "repeats": 2, "with_fitc": m <= 256})
-        fitc = r.get("fitc_s", float("nan"))
-        print(f"{r['n']:>9} {r['m']:>5} {r['chunk']:>6} {r['vfe_s']:>8.3f} {r['blocks_s']:>9.3f} "
-              f"{r['rest_s']:>9.3f} {r['syrk_s']:>8.3f} {r['ratio']:>6.2f} {r['ops_s']:>7.3f} "
-              f"{r['ops_ratio']:>9.2f} {fitc:>7.3f} {fitc / r['vfe_s']:>8.2f}")
+        fitc, fitc_full = r.get("fitc_s", float("nan")), r.get("fitc_full_s", float("nan"))
+        print(f"{r['n']:>9} {r['m']:>5} {r['window_mean']:>6.1f} {str(r['raw'])[0]:>4} "
+              f"{r['vfe_s']:>7.3f} {r['blocks_s']:>7.3f} {r['syrk_s']:>8.3f} "
+              f"{r['syrk_s'] / r['vfe_s']:>6.2f} {r['vfe_full_s']:>7.3f} "
+              f"{r['blocks_full_s']:>7.3f} {r['syrk_s'] / r['vfe_full_s']:>6.2f} "
+              f"{fitc:>7.3f} {fitc / r['vfe_s']:>5.2f} {fitc_full:>8.3f} "
+              f"{fitc_full / r['vfe_full_s']:>5.2f}")
     print("\n## memory: one VFE evaluation (m=256) from a generated source")
     print(f"{'n':>9} {'traced peak MB':>15} {'max RSS MB':>11} {'seconds':>8}")
     for nn in ((100_000, 1_000_000) if opts.quick else (100_000, 1_000_000, 10_000_000)):

@@ -1,7 +1,7 @@
 """Compiled block loops (``_loops/blocks.py``) against plain-numpy twins.
 
 Sources: each primitive against the kernel's own numpy ``value``/``grad``
-(Rasmussen & Williams 2006, eq. 4.17) and the lag derivative against
+(Rasmussen & Williams 2006, eqs. 4.17 and 4.9) and the lag derivative against
 central differences (common practice); the flat sum-of-products form of
 composite kernels against the kernels' own ``value``/``grad``.
 """
@@ -13,7 +13,7 @@ import pytest
 from conftest import central_difference
 
 from longwave._loops import blocks as loops
-from longwave.kernels import Matern12, Matern32, Matern52
+from longwave.kernels import Matern12, Matern32, Matern52, SquaredExp
 from longwave.methods.sparse_form import CompiledBlocks, NumpyBlocks, block_evaluator, flat_form
 
 
@@ -33,6 +33,9 @@ KERNELS = {
     "m12": lambda: Matern12(amplitude=1.3, scale=2.0),
     "m32": lambda: Matern32(amplitude=0.7, scale=0.9),
     "m52": lambda: Matern52(amplitude=1.1, scale=3.0),
+    "se": lambda: SquaredExp(amplitude=0.9, scale=1.7),
+    "se_times_m12": lambda: SquaredExp(amplitude=0.9, scale=1.7) * Matern12(amplitude=1.0,
+                                                                            scale=6.0),
     "sum": lambda: Matern32(amplitude=1.0, scale=2.0) + Matern52(amplitude=0.3, scale=0.5),
     "prod_of_sums": lambda: (Matern32(amplitude=1.0, scale=2.0)
                              + Matern12(amplitude=0.4, scale=1.0))
@@ -73,7 +76,7 @@ def test_square_contraction_equals_numpy_twin(case, rng):
     np.testing.assert_allclose(gz, ref_gz, rtol=1e-6, atol=1e-7)
 
 
-@pytest.mark.parametrize("cls", [Matern12, Matern32, Matern52])
+@pytest.mark.parametrize("cls", [Matern12, Matern32, Matern52, SquaredExp])
 def test_primitive_lag_derivative_equals_central_differences(cls):
     kernel = cls(amplitude=1.4, scale=2.5)
     par = np.array([1.4, 2.5, 0.0, 0.0])

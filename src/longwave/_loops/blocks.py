@@ -29,6 +29,7 @@ CODE_NONE = 0
 CODE_MATERN12 = 1
 CODE_MATERN32 = 2
 CODE_MATERN52 = 3
+CODE_SQUARED_EXP = 4
 
 MAX_PARAMS = 4  # widest factor supported; raise it here if a kernel needs more
 # Decays beyond exp(-300) (5e-131) are written as exact zeros. They change nothing
@@ -52,7 +53,8 @@ def primitive(code, tau, par, out, with_grad):
     """Write ``k(tau)`` into ``out[0]``; with ``with_grad`` also ``dk/dtau`` into
     ``out[1]`` and ``dk/dlog(par[p])`` into ``out[2 + p]``.
 
-    Matérn forms: Rasmussen & Williams 2006, eq. 4.17, with ``u = lam tau``.
+    Matérn forms: Rasmussen & Williams 2006, eq. 4.17, with ``u = lam tau``;
+    the squared exponential: eq. 4.9.
     """
     amp2 = par[0] * par[0]
     if code == CODE_MATERN12:
@@ -82,6 +84,15 @@ def primitive(code, tau, par, out, with_grad):
             out[1] = -lam * u * (1.0 + u) * e / 3.0
             out[2] = 2.0 * out[0]
             out[3] = u * u * (1.0 + u) * e / 3.0
+    elif code == CODE_SQUARED_EXP:  # R&W 2006, eq. 4.9; x = tau / scale
+        inv = 1.0 / par[1]
+        x = tau * inv
+        e = amp2 * _decay(0.5 * x * x)
+        out[0] = e
+        if with_grad:
+            out[1] = -x * inv * e
+            out[2] = 2.0 * e
+            out[3] = x * x * e
     else:
         out[0] = math.nan
         if with_grad:

@@ -18,6 +18,7 @@ To add a kernel, subclass :class:`Primitive` (see DEVELOPERS.md):
 
 from __future__ import annotations
 
+import math
 from dataclasses import replace
 
 import numpy as np
@@ -28,6 +29,10 @@ from .statespace import StateSpace, stack_blocks
 
 # Relative covariance error below which a state-space form counts as exact.
 EXACT_FORM_TOLERANCE = 1e-9
+# Relative size below which a covariance (or its derivative) counts as zero
+# when sparse methods skip far inducing times: 1e-17 is under double-precision
+# round-off of any entry of size k(0) (common practice: drop terms below eps).
+SUPPORT_REL = 1e-17
 
 
 class Kernel:
@@ -114,6 +119,16 @@ class Kernel:
         their own, sums add them, products combine them as in :class:`Product`.
         """
         return 0.0
+
+    def support_radius(self, rel: float = SUPPORT_REL) -> float:
+        """Lag beyond which ``|k|`` and ``|dk/dlog(theta)|`` stay below ``rel * k(0)``.
+
+        Sparse methods skip inducing times farther than this from a chunk of
+        data (``sparse_windows``): their cross-covariances are zero to
+        round-off. ``inf`` (the default for kernels that do not decay, such as
+        periodic ones) means every inducing time matters everywhere.
+        """
+        return math.inf
 
     def state_space(self) -> StateSpace:
         raise NotImplementedError(
@@ -215,6 +230,19 @@ class Primitive(Kernel):
         raise NotImplementedError
 
 
+def decay_root(rel: float, power: float, factor: float = 1.0) -> float:
+    """Largest root ``x`` of ``(1 + factor * x)^power * exp(-x) = rel``, for ``rel < 1``.
+
+    Beyond it the left side decreases (``x > power``) and stays below ``rel``.
+    Fixed-point iteration ``x = log(1/rel) + power * log(1 + factor * x)``,
+    which contracts there; a few steps reach double precision.
+    """
+    x = math.log(1.0 / rel)
+    for _ in range(50):
+        x = math.log(1.0 / rel) + power * math.log1p(factor * x)
+    return x
+
+
 def _unique_labels(leaves: list[Primitive]) -> list[Primitive]:
     """Relabel repeated leaf labels as label, label_2, label_3, ... (first stays)."""
     seen: dict[str, int] = {}
@@ -293,6 +321,11 @@ class Sum(_Composite):
             return super().state_space()
         return stack_blocks([part.state_space() for part in self.parts])
 
+    def support_radius(self, rel: float = SUPPORT_REL) -> float:
+        # beyond the largest radius every part is below rel * k_i(0) <= rel * k(0)
+        # (the variances of the parts are positive and add up)
+        return max(part.support_radius(rel) for part in self.parts)
+
     def covariance_error_bound(self) -> float:
         # |sum k_i' - sum k_i| <= sum |k_i' - k_i|
         return float(sum(part.covariance_error_bound() for part in self.parts))
@@ -315,6 +348,11 @@ class Product(_Composite):
         if not self.has_state_space:
             return super().state_space()
         return product_state_space([part.state_space() for part in self.parts])
+
+    def support_radius(self, rel: float = SUPPORT_REL) -> float:
+        # |k_j(tau)| <= k_j(0) for every stationary factor, so one factor below
+        # rel * k_j(0) puts the product (and each derivative) below rel * k(0)
+        return min(part.support_radius(rel) for part in self.parts)
 
     def covariance_error_bound(self) -> float:
         # |a'b' - ab| <= |a| |b' - b| + |b'| |a' - a|, with |k| <= k(0), folded left to right

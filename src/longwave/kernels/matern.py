@@ -27,7 +27,7 @@ import numpy as np
 from scipy.linalg import solve_continuous_lyapunov
 
 from .._loops.blocks import CODE_MATERN12, CODE_MATERN32, CODE_MATERN52
-from .base import Primitive
+from .base import SUPPORT_REL, Primitive, decay_root
 from .statespace import StateSpace
 
 
@@ -63,6 +63,11 @@ class _Matern(Primitive):
         """``lam = sqrt(2 nu) / scale``, the decay rate of the covariance."""
         nu = self.order - 0.5
         return math.sqrt(2 * nu) / self._params[1].value
+
+    def support_radius(self, rel: float = SUPPORT_REL) -> float:
+        # value and both log-derivatives are poly(u) exp(-u) with poly <= (1 + u)^3
+        # times k(0) = amplitude^2, for every order up to 5/2
+        return decay_root(rel, 3.0) / self.rate
 
     def _u(self, tau, scale):
         return (math.sqrt(2 * (self.order - 0.5)) / scale) * np.abs(tau)

@@ -42,7 +42,8 @@ from functools import lru_cache
 
 import numpy as np
 
-from .base import Primitive
+from .._loops.blocks import CODE_SQUARED_EXP
+from .base import SUPPORT_REL, Primitive, decay_root
 from .statespace import StateSpace
 
 #: Default bound on the covariance error of the state-space form, relative to the variance.
@@ -177,6 +178,7 @@ class SquaredExp(Primitive):
     param_names_local = ("amplitude", "scale")
     default_label = "squared_exp"
     has_state_space_form = True
+    loop_code = CODE_SQUARED_EXP  # compiled form in _loops/blocks.py (sparse methods)
 
     def __init__(self, *, order: int | None = None, tolerance: float = DEFAULT_TOLERANCE,
                  label: str | None = None, **values):
@@ -193,6 +195,11 @@ class SquaredExp(Primitive):
     def covariance_error_bound(self) -> float:
         """Maximum over ``tau`` of ``|k_ss(tau) - k(tau)|`` (exact, attained at 0)."""
         return self._params[0].value ** 2 * relative_error(self.order)
+
+    def support_radius(self, rel: float = SUPPORT_REL) -> float:
+        # value and log-derivatives are at most (1 + x^2) exp(-x^2 / 2) k(0), x = tau / scale;
+        # with s = x^2 / 2 that is (1 + 2 s) exp(-s)
+        return self._params[1].value * math.sqrt(2.0 * decay_root(rel, 1.0, 2.0))
 
     def _value(self, tau, amplitude, scale):
         return amplitude**2 * np.exp(-0.5 * (tau / scale) ** 2)

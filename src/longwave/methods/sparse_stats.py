@@ -14,6 +14,9 @@ Notation (Titsias 2009; Snelson & Ghahramani 2006): inducing times ``z``
 * VFE value pass: whitened columns ``a_i = Linv k_i``,
   ``S = sum_i w_i a_i a_i^T = Linv Phi Linv^T``, ``cw = sum_i w_i r_i a_i``, and
   the sums of ``w r^2``, ``log s2``, ``w`` (one product and one syrk per chunk).
+  When ``Kuu`` is well conditioned (``ChunkContext.raw``) the pass instead
+  adds the unwhitened ``Phi`` and ``b`` over each chunk's window of inducing
+  times (``sparse_windows``), and the caller whitens the totals once.
 * FITC value pass: whitened columns ``a_i = Linv k_i``, ``q_i = |a_i|^2``,
   ``D_i = s2_i + kd - q_i``; ``S_F = sum a_i a_i^T / D_i``, ``c_F = sum a_i r_i / D_i``,
   the sums of ``r^2 / D`` and ``log D``; and the VFE statistics (whitened) for
@@ -31,6 +34,7 @@ import numpy as np
 from scipy.linalg import blas
 
 from .._loops.blocks import flush_tiny
+from . import sparse_windows
 
 TINY = 1e-150  # entries below this are flushed to 0 after whitening (see flush_tiny)
 
@@ -48,8 +52,12 @@ class Accumulator:
     sum_rr: float = 0.0                # sum w r^2 (VFE) or r^2 / D (FITC)
     sum_log: float = 0.0               # sum log s2 (VFE) or log D (FITC)
     sum_w: float = 0.0                 # sum w
+    raw_mat: np.ndarray | None = None  # VFE value pass, raw mode: unwhitened Phi, (m, m)
+    raw_vec: np.ndarray | None = None  # VFE value pass, raw mode: unwhitened b, (m,)
     vfe_mat: np.ndarray | None = None  # FITC pass only: whitened Phi, (m, m)
     vfe_vec: np.ndarray | None = None  # FITC pass only: whitened b, (m,)
+    vfe_raw_mat: np.ndarray | None = None  # FITC raw mode: unwhitened Phi, (m, m)
+    vfe_raw_vec: np.ndarray | None = None  # FITC raw mode: unwhitened b, (m,)
     vfe_rr: float = 0.0
     vfe_log: float = 0.0
     grad: np.ndarray | None = None     # gradient passes: kernel log-parameters (p,)
@@ -89,6 +97,14 @@ class ChunkContext:
         Number of kernel parameters (length of the kernel gradient).
     with_z : bool
         Also accumulate the gradient over inducing times.
+    windows : sparse_windows.Windows or None
+        Which inducing times each chunk sees; None: all of them.
+    raw : bool
+        Accumulate unwhitened statistics over windows (set only when ``Kuu``
+        is well conditioned; see ``sparse.RAW_COND_MAX``).
+    kinv : ndarray of shape (m, m) or None
+        FITC raw mode: ``Kuu^-1 = Linv^T Linv``. Its gradient pass then takes
+        ``adj_mat = Linv^T B_F^-1 Linv`` and ``adj_vec = Linv^T g_hat``.
     """
 
     blocks: object
@@ -101,6 +117,13 @@ class ChunkContext:
     adj_vec: np.ndarray | None = None
     n_grad: int = 0
     with_z: bool = False
+    windows: sparse_windows.Windows | None = None
+    raw: bool = False
+    kinv: np.ndarray | None = None
+
+    def window(self, t):
+        """Indices of the inducing times that chunk times ``t`` see (slice or array)."""
+        return slice(None) if self.windows is None else self.windows.find(t)
 
 
 def _noise(ctx, err):
@@ -141,9 +164,15 @@ def vfe_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     w = 1.0 / s2
     sw = np.sqrt(w)
     r = y - ctx.mean
-    aw = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, sw))  # Linv K diag(sqrt(w))
-    acc.mat += aw @ aw.T
-    acc.vec += aw @ (sw * r)
+    if ctx.raw:
+        win = ctx.window(t)
+        kw = ctx.blocks.block(ctx.z[win], t, sw)  # K diag(sqrt(w)), window rows only
+        acc.raw_mat[sparse_windows.square(win)] += kw @ kw.T
+        acc.raw_vec[win] += kw @ (sw * r)
+    else:
+        aw = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, sw))  # Linv K diag(sqrt(w))
+        acc.mat += aw @ aw.T
+        acc.vec += aw @ (sw * r)
     acc.n += t.size
     acc.sum_rr += float(w @ (r * r))
     acc.sum_log += float(np.log(s2).sum())
@@ -165,23 +194,58 @@ def vfe_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     s2 = _noise(ctx, err)
     w = 1.0 / s2
     r = y - ctx.mean
-    k = ctx.blocks.block(ctx.z, t, np.ones(t.size))
-    v = ctx.adj_mat @ k
+    # Rows of K outside the window are zero to round-off, and so are their
+    # kernel derivatives: only the window's rows of the adjoint are needed.
+    win = ctx.window(t)
+    z, g = ctx.z[win], ctx.adj_vec[win]
+    k = ctx.blocks.block(z, t, np.ones(t.size))
+    v = ctx.adj_mat[sparse_windows.square(win)] @ k
     kgk = np.einsum("ac,ac->c", k, v)
-    gk = ctx.adj_vec @ k
+    gk = g @ k
+    gz = np.zeros(z.size)
     # the adjoint dF/dK of the chunk is v diag(2 w) + g (w r)^T, formed inside the loop
-    ctx.blocks.contract(ctx.z, t, v, ctx.with_z, acc.grad, acc.grad_z,
-                        colscale=2.0 * w, u=ctx.adj_vec, v=w * r)
+    ctx.blocks.contract(z, t, v, ctx.with_z, acc.grad, gz, colscale=2.0 * w, u=g, v=w * r)
+    acc.grad_z[win] += gz
     dw = kgk + r * gk - 0.5 * r * r + 0.5 * s2 - 0.5 * ctx.kd
     acc.sum_dnoise += float(-(w * w) @ dw)
     acc.sum_dresid += float(w @ (gk - r))
     acc.n += t.size
 
 
+def _fitc_raw_block(ctx, t, err):
+    """Window, its block ``k`` (w, c), ``Kuu^-1 k`` and ``D`` of one chunk (raw mode)."""
+    win = ctx.window(t)
+    k = ctx.blocks.block(ctx.z[win], t, np.ones(t.size))
+    kk = ctx.kinv[sparse_windows.square(win)] @ k
+    d = _noise(ctx, err) + np.maximum(ctx.kd - np.einsum("ac,ac->c", k, kk), 0.0)
+    return win, k, kk, d
+
+
 def fitc_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
-    """Fill the FITC sums (``mat, vec, sum_rr, sum_log``) and the whitened VFE ones."""
+    """Fill the FITC sums (``mat, vec, sum_rr, sum_log``) and the whitened VFE ones.
+
+    Raw mode fills ``raw_mat, raw_vec, vfe_raw_mat, vfe_raw_vec`` instead of
+    the matrices and vectors: the same sums before whitening, over windows.
+    """
     s2 = _noise(ctx, err)
     r = y - ctx.mean
+    if ctx.raw:
+        win, k, _, d = _fitc_raw_block(ctx, t, err)
+        sq = sparse_windows.square(win)
+        kd_ = k * (1.0 / np.sqrt(d))
+        acc.raw_mat[sq] += kd_ @ kd_.T
+        acc.raw_vec[win] += k @ (r / d)
+        w = 1.0 / s2
+        kw = k * np.sqrt(w)
+        acc.vfe_raw_mat[sq] += kw @ kw.T
+        acc.vfe_raw_vec[win] += k @ (w * r)
+        acc.sum_rr += float((r * r) @ (1.0 / d))
+        acc.sum_log += float(np.log(d).sum())
+        acc.vfe_rr += float(w @ (r * r))
+        acc.vfe_log += float(np.log(s2).sum())
+        acc.sum_w += float(w.sum())
+        acc.n += t.size
+        return
     a = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, np.ones(t.size)))
     d = s2 + np.maximum(ctx.kd - np.einsum("ac,ac->c", a, a), 0.0)
     sd = 1.0 / np.sqrt(d)
@@ -209,6 +273,9 @@ def fitc_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     ``delta_i = (alpha_i^2 - 1/D_i + a_i^T B^-1 a_i / D_i^2) / 2`` and
     ``dF/dk_i = Linv^T (g alpha_i - B^-1 a_i / D_i - 2 delta_i a_i)``.
     """
+    if ctx.raw:
+        _fitc_grad_raw(ctx, t, y, err, acc)
+        return
     s2 = _noise(ctx, err)
     r = y - ctx.mean
     a = whiten(ctx.linv, ctx.blocks.block(ctx.z, t, np.ones(t.size)))
@@ -229,6 +296,31 @@ def fitc_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     acc.n += t.size
 
 
+def _fitc_grad_raw(ctx, t, y, err, acc):
+    """:func:`fitc_grad_chunk` in raw mode: the same sums with ``Linv`` multiplied out.
+
+    With ``M = Linv^T B^-1 Linv`` and ``h = Linv^T g_hat``: ``a^T B^-1 a = k^T M k``,
+    ``a^T g_hat = h^T k`` and ``Linv^T (B^-1 a / D + 2 delta a) = M k / D + 2 delta Kuu^-1 k``;
+    ``sum delta a a^T`` is accumulated unwhitened in ``raw_mat``.
+    """
+    r = y - ctx.mean
+    win, k, kk, d = _fitc_raw_block(ctx, t, err)
+    sq = sparse_windows.square(win)
+    mk = ctx.adj_mat[sq] @ k
+    h = ctx.adj_vec[win]
+    alpha = (r - h @ k) / d
+    delta = 0.5 * (alpha * alpha - 1.0 / d + np.einsum("ac,ac->c", k, mk) / (d * d))
+    adj = mk * (-1.0 / d) - kk * (2.0 * delta)  # plus the rank-one h alpha^T, added in the loop
+    gz = np.zeros(k.shape[0])
+    ctx.blocks.contract(ctx.z[win], t, adj, ctx.with_z, acc.grad, gz, u=h, v=alpha)
+    acc.grad_z[win] += gz
+    acc.raw_mat[sq] += (k * delta) @ k.T
+    acc.sum_dkd += float(delta.sum())
+    acc.sum_dnoise += float(delta.sum())
+    acc.sum_dresid += float(-alpha.sum())
+    acc.n += t.size
+
+
 def new_accumulator(kind: str, m: int, p: int = 0) -> Accumulator:
     """Zeroed accumulator for a pass of ``kind`` in {'value', 'fitc_value', 'grad', 'fitc_grad'}."""
     acc = Accumulator()
@@ -236,6 +328,12 @@ def new_accumulator(kind: str, m: int, p: int = 0) -> Accumulator:
         acc.mat = np.zeros((m, m))
     if kind in ("value", "fitc_value"):
         acc.vec = np.zeros(m)
+    if kind in ("value", "fitc_value"):
+        acc.raw_mat, acc.raw_vec = np.zeros((m, m)), np.zeros(m)
+    if kind == "fitc_value":
+        acc.vfe_raw_mat, acc.vfe_raw_vec = np.zeros((m, m)), np.zeros(m)
+    if kind == "fitc_grad":
+        acc.raw_mat = np.zeros((m, m))
     if kind == "fitc_value":
         acc.vfe_mat, acc.vfe_vec = np.zeros((m, m)), np.zeros(m)
     if kind in ("grad", "fitc_grad"):
