@@ -110,7 +110,8 @@ def _child(args) -> None:
             before = probe.run(_cpu_seconds)
             c0, t0 = _cpu_seconds(), time.perf_counter()
             summary = run_survey(args.input, out, model="matern32",
-                                 scheduler=cluster.scheduler_address, overwrite=True,
+                                 scheduler=cluster.scheduler_address, workers_read=True,
+                                 overwrite=True,
                                  progress=False, quiet=True)
             wall, client_cpu = time.perf_counter() - t0, _cpu_seconds() - c0
             after = probe.run(_cpu_seconds)

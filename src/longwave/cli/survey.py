@@ -98,6 +98,10 @@ def register(sub) -> None:
                         "0: serial, in this process)")
     g.add_argument("--scheduler", metavar="ADDRESS",
                    help="use an existing dask scheduler, e.g. tcp://127.0.0.1:8786")
+    g.add_argument("--workers-read", action=argparse.BooleanOptionalAction, default=None,
+                   help="workers read their objects from the survey HDF5 file instead of "
+                        "receiving them (default: yes for an embedded cluster, no with "
+                        "--scheduler, whose workers may not see the file)")
     g.add_argument("--resume", action="store_true",
                    help="continue RESULTS.h5, skipping the objects it holds")
     g.add_argument("--overwrite", action="store_true", help="replace RESULTS.h5")
@@ -126,7 +130,8 @@ def run(args) -> int:
             inducing=args.inducing, workers=args.workers, scheduler=args.scheduler,
             resume=args.resume, overwrite=args.overwrite, batch_size=args.batch_size,
             in_flight=args.in_flight, retries=args.retries, columns=columns_from_args(args),
-            progress=not args.quiet, quiet=args.quiet, flush_seconds=args.flush_seconds)
+            progress=not args.quiet, quiet=args.quiet, flush_seconds=args.flush_seconds,
+            workers_read=args.workers_read)
     except ClusterError as exc:
         print(f"longwave survey: error: {exc}", file=sys.stderr)
         return 2

@@ -15,6 +15,7 @@ Layout ``survey`` version 1::
 from __future__ import annotations
 
 import json
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -438,6 +439,26 @@ class SurveyFile:
         ------
         list of ObjectData
         """
+        for chunk in self._position_batches(batch_size, skip, start, stop):
+            # Consecutive positions are read together: one read per column per run.
+            breaks = np.flatnonzero(np.diff(chunk) != 1) + 1
+            batch = []
+            for run in np.split(chunk, breaks):
+                batch.extend(self._read_run(int(run[0]), int(run[-1]) + 1))
+            yield batch
+
+    def iter_stored_batches(self, batch_size: int = 64, skip=None):
+        """As :meth:`iter_batches`, but yield :class:`StoredBatch` references, reading nothing.
+
+        For workers that open this file themselves (see ``stored_batch``).
+        """
+        from .stored_batch import StoredBatch, position_runs
+
+        for chunk in self._position_batches(batch_size, skip, 0, None):
+            yield StoredBatch(os.path.abspath(self.path), position_runs(chunk),
+                              tuple(str(i) for i in self.ids[chunk]))
+
+    def _position_batches(self, batch_size, skip, start, stop):
         if batch_size < 1:
             raise ValueError(f"batch_size must be >= 1, got {batch_size}")
         stop = len(self) if stop is None else min(int(stop), len(self))
@@ -446,13 +467,7 @@ class SurveyFile:
             keep = ~np.isin(self.ids[start:stop], np.array(sorted(map(str, skip)), dtype=str))
             positions = positions[keep]
         for b in range(0, positions.size, batch_size):
-            chunk = positions[b:b + batch_size]
-            # Consecutive positions are read together: one read per column per run.
-            breaks = np.flatnonzero(np.diff(chunk) != 1) + 1
-            batch = []
-            for run in np.split(chunk, breaks):
-                batch.extend(self._read_run(int(run[0]), int(run[-1]) + 1))
-            yield batch
+            yield positions[b:b + batch_size]
 
     def close(self) -> None:
         if self._f is not None:

@@ -75,6 +75,21 @@ class SurveyInput:
             yield from iter_table_batches(self.path, batch_size=batch_size, skip=skip,
                                           columns=self._columns)
 
+    @property
+    def stored(self) -> bool:
+        """Whether :meth:`stored_batches` works: the input is a survey HDF5 file."""
+        return self._file is not None
+
+    def stored_batches(self, batch_size: int, skip=None):
+        """Yield :class:`~longwave.storage.stored_batch.StoredBatch` references (HDF5 only).
+
+        Workers that can open the file read the objects themselves.
+        """
+        if self._file is None:
+            raise ValueError(f"{self.path} is a long table: only survey HDF5 files can be "
+                             "read by the workers; ship the data instead (workers_read=False)")
+        yield from self._file.iter_stored_batches(batch_size=batch_size, skip=skip)
+
     def close(self) -> None:
         if self._file is not None:
             self._file.close()

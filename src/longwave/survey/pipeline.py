@@ -20,6 +20,7 @@ from .. import methods
 from .._config import limit_threads
 from ..inference import fit, posterior
 from ..storage.records import ObjectResult
+from ..storage.stored_batch import StoredBatch
 from .initial import DataScales, build_model
 from .spec import ModelSpec, parse_spec
 from .validate import MIN_POINTS, check_object
@@ -324,9 +325,14 @@ class PipelineConfig:
 def fit_batch(batch, config: PipelineConfig, threads: int = 1) -> list[ObjectFit]:
     """Fit a batch of objects (anything with ``id``, ``t``, ``y``, ``err``) in order.
 
+    ``batch`` may also be a :class:`~longwave.storage.stored_batch.StoredBatch`,
+    whose objects are read from the survey file here.
+
     Runs with BLAS and numba threads held at ``threads``: survey parallelism
     comes from processes, and nested threads would compete for the same cores.
     """
+    if isinstance(batch, StoredBatch):  # a reference: read the objects here
+        batch = batch.read()
     with limit_threads(threads):
         return [fit_object(obj.t, obj.y, obj.err, model_spec=config.model,
                            method=config.method, clip=config.clip,

@@ -19,6 +19,13 @@ Execution
   succeeded, the run stops with :class:`ClusterError` instead: that is a
   broken cluster, and recording every object as failed would make a resume
   skip them all.
+* From a survey HDF5 file, an embedded cluster's workers read their
+  batches themselves (``workers_read``): the client sends each task a
+  :class:`~longwave.storage.stored_batch.StoredBatch` (path, positions, ids)
+  instead of the arrays, so on a small machine the client, which shares the
+  cores with the workers, neither reads nor serialises the data, and the
+  data never pass through the scheduler. A remote cluster gets the arrays
+  unless told that its workers see the file (``workers_read=True``).
 * Every id is written once: ids already stored (``resume``) are not read
   again, and a result for an id already written is dropped and counted.
 """
@@ -37,6 +44,7 @@ from tqdm import tqdm
 
 from .. import methods
 from ..storage import ObjectResult, ResultStore
+from ..storage.stored_batch import StoredBatch
 from .initial import param_names
 from .inputs import SurveyInput
 from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch, warm_up
@@ -106,9 +114,10 @@ def _run_distributed(client, batches, config, writer, in_flight: int, retries: i
                 fits = future.result()
                 succeeded = True
             except Exception as exc:  # worker lost too often, or a task error
-                if len(batch) > 1:
-                    for obj in batch:  # isolate the culprit
-                        submit([obj])
+                if len(batch) > 1:  # isolate the culprit
+                    for single in (batch.split() if isinstance(batch, StoredBatch)
+                                   else [[obj] for obj in batch]):
+                        submit(single)
                     continue
                 if not succeeded:
                     # Every object failing alike (workers that cannot import
@@ -169,6 +178,23 @@ def _connect(stack, workers, scheduler, quiet, timeout):
     return client, workers, workers, "embedded"
 
 
+def _check_workers_read(client, source) -> None:
+    """Fail early, and clearly, if the workers cannot read the survey file."""
+    if not source.stored:
+        raise ValueError(f"workers_read=True needs a survey HDF5 input; {source.path} is a long "
+                         "table, which the client reads (leave workers_read unset)")
+    probe = next(source.stored_batches(1), None)
+    if probe is None:
+        return
+    try:
+        client.run(probe.read)
+    except Exception as exc:
+        raise ClusterError(
+            f"the workers cannot read {probe.path} ({type(exc).__name__}: {exc}); give them "
+            "the same file system, or let the client send the data (workers_read=False)"
+        ) from exc
+
+
 def _check_settings(method, clip, batch_size, workers, in_flight, retries):
     if method.lower() != AUTO and method.lower() not in methods.REGISTRY:
         methods.resolve(method)  # raises, listing the valid names
@@ -184,6 +210,7 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
                max_clip_iter: int = 5, grid=None, inducing=None, workers=None,
                scheduler=None, resume: bool = False, overwrite: bool = False,
                batch_size: int = 64, in_flight=None, retries: int = 2, columns=None,
+               workers_read=None,
                progress: bool = True, quiet: bool = False,
                flush_seconds: float = 10.0, flush_rows: int = 1000,
                connect_timeout: float = 30.0) -> SurveySummary:
@@ -219,6 +246,12 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
         Reruns of a task that raised on a worker.
     columns : dict, optional
         Column names of a long-table input (see :class:`SurveyInput`).
+    workers_read : bool, optional
+        Let the workers read their objects from the survey HDF5 file instead
+        of receiving them from the client. Default: yes for the embedded
+        cluster, no with ``scheduler`` (its workers may not see the file;
+        pass True when they share this file system). Long tables are always
+        read by the client.
     progress : bool, default True
         Progress bar (objects per second, ETA) on stderr.
     quiet : bool, default False
@@ -261,6 +294,10 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
                     f"the workers cannot run the survey pipeline ({type(exc).__name__}: {exc});"
                     " check that every worker runs the same environment as this client"
                 ) from exc
+            if workers_read is None:
+                workers_read = not scheduler and source.stored
+            if workers_read:
+                _check_workers_read(client, source)
         else:
             used, threads, address = 0, 0, "serial"
             warm_up(config)
@@ -274,7 +311,9 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
             disable=quiet or not progress, mininterval=0.5, desc="survey"))
         tally = Tally()
         writer = _Writer(store, set(done), bar, tally)
-        batches = source.batches(int(batch_size), skip=done)
+        batches = (source.stored_batches(int(batch_size), skip=done)
+                   if client is not None and workers_read
+                   else source.batches(int(batch_size), skip=done))
         if client is None:
             _run_serial(batches, config, writer)
         else:
