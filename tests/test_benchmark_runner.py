@@ -155,3 +155,16 @@ def test_state_space_orders_compare_as_settings():
     gaps = [abs(r.lml_diff_per_point) for r in result.methods]
     assert gaps[0] > gaps[1] > gaps[2]
     assert result.methods[0].description["kernel_options"] == {"order": 2}
+
+
+def test_greedy_placement_runs_through_the_method_prepare_hook():
+    # Source: the VFE bound is a lower bound of the exact log marginal likelihood
+    # (Titsias 2009), whatever the inducing times; greedy ones are fixed once by
+    # Method.prepare, so the setting runs instead of being refused.
+    series = _simulate(Matern32(amplitude=1.0, scale=40.0), 300, seed=8)
+    start = Model(Matern32(amplitude=1.0, scale=40.0), excess_noise=0.05)
+    result = run_benchmark(series, start, parse_methods("kalman vfe:m=16:placement=greedy"),
+                           fit=False, scaling_steps=0)
+    greedy = _by_label(result)["vfe:m=16:placement=greedy"]
+    assert greedy.status == "ok", greedy.message
+    assert greedy.lml <= result.reference.lml + 1e-9

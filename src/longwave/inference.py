@@ -26,14 +26,23 @@ def _check_inputs(model, series, method):
             f"model must be a longwave.Model, got {type(model).__name__}; wrap a kernel "
             "as Model(kernel)"
         )
-    if not isinstance(series, Series):
+    from .methods import ChunkedSeries, SparseMethod
+
+    if isinstance(series, ChunkedSeries):
+        method = resolve(method) if method is not None else None
+        if not isinstance(method, SparseMethod):
+            raise TypeError(
+                "a ChunkedSeries (a series read in chunks) needs a sparse method, for "
+                "example method=VFE(inducing=256); or pass a longwave.Series"
+            )
+    elif not isinstance(series, Series):
         raise TypeError(
             f"series must be a longwave.Series, got {type(series).__name__}; build one "
             "with Series(t, y, err)"
         )
     method = resolve(method if method is not None else default_method(model, series))
     method.check(model, series)
-    return method
+    return method.prepare(model, series)
 
 
 def default_method(model: Model, series: Series):

@@ -165,6 +165,8 @@ class _Scorer:
         except ValueError as exc:
             res.full_series_ok, res.full_series_message = False, str(exc)
         try:
+            # settings fixed from the data once (greedy inducing times), as fit() does
+            method = method.prepare(ref_model, train)
             self._measure(res, method, ref_model, start_model, ref_lml, zoom_curves)
         except Exception as exc:  # noqa: BLE001 - one failing setting must not end the run
             res.status, res.message = "failed", f"{type(exc).__name__}: {exc}"

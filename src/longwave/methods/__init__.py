@@ -5,7 +5,7 @@ import inspect
 from .base import Evaluation, Method, Posterior, Prediction
 from .exact import Exact
 from .kalman import Kalman
-from .sparse import FITC, VFE
+from .sparse import FITC, VFE, SparseMethod
 from .sparse_data import ChunkedSeries
 from .sparse_optimize import optimize_inducing
 
@@ -57,5 +57,5 @@ def resolve(method, **options) -> Method:
 
 __all__ = [
     "ChunkedSeries", "Evaluation", "Exact", "FITC", "Kalman", "Method", "Posterior",
-    "Prediction", "VFE", "optimize_inducing", "resolve",
+    "Prediction", "SparseMethod", "VFE", "optimize_inducing", "resolve",
 ]

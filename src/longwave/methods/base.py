@@ -115,6 +115,16 @@ class Method:
     def check(self, model, series) -> None:
         """Raise ``ValueError`` if this method cannot handle ``(model, series)``."""
 
+    def prepare(self, model, series) -> Method:
+        """The method to use for ``(model, series)`` from now on (default: itself).
+
+        Called once by ``log_marginal_likelihood``, ``fit`` and ``posterior``
+        before any evaluation, for settings that must be fixed from the data
+        and the initial model and then kept while the hyperparameters move
+        (a sparse method's greedy inducing times, say).
+        """
+        return self
+
     def evaluate(self, model, series, gradient: bool = False) -> Evaluation:
         """Log marginal likelihood (and gradient over free coordinates)."""
         raise NotImplementedError

@@ -62,8 +62,9 @@ class SparseMethod(Method):
         series, or the times themselves.
     placement : {'quantile', 'uniform', 'kmeans', 'greedy'}, default 'quantile'
         Strategy when ``inducing`` is a count (see ``longwave.methods.inducing``).
-        'greedy' depends on the kernel, so fix it once with :meth:`placed`
-        before fitting.
+        'greedy' depends on the kernel: ``fit``, ``posterior`` and
+        ``log_marginal_likelihood`` fix it from the initial model
+        (:meth:`prepare`); called directly, fix it with :meth:`placed`.
     jitter : float, default 1e-8
         Added to the diagonal of ``Kuu`` as ``jitter * k(0)``.
     chunk : int, optional
@@ -160,6 +161,12 @@ class SparseMethod(Method):
                 ".placed(model, series)"
             )
         return place(series, self.inducing, self.placement, model.kernel, self.seed)
+
+    def prepare(self, model, series) -> SparseMethod:
+        """Greedy placement is fixed now, from the initial model (see :meth:`placed`)."""
+        if isinstance(self.inducing, int) and self.placement == "greedy":
+            return self.placed(model, series)
+        return self
 
     def placed(self, model, series) -> SparseMethod:
         """A copy with the inducing times fixed as placed now for ``(model, series)``."""
