@@ -673,6 +673,11 @@ def gen_smooth_scalar(code, tr):
     for a, b in upper(d):
         code(f"{sym('sp', a, b)} = {sym('np', a, b)}")
     code.dedent()
+    store_smoothed_and_close(code, d)
+
+
+def store_smoothed_and_close(code, d):
+    """Write the smoothed state of step ``k`` and close the step, block and chunk loops."""
     code("# (a repeated time keeps the state: one state, conditioned on every copy)")
     for a in range(d):
         code(f"ms[k, {a}] = sm{a}")
@@ -871,17 +876,7 @@ def gen_smooth(code, tr):
     code.indent()
     smooth_recursion(code, d)
     code.dedent()
-    code("# (a repeated time keeps the state: one state, conditioned on every copy)")
-    for a in range(d):
-        code(f"ms[k, {a}] = sm{a}")
-    for a, b in upper(d):
-        code(f"Ps[k, {a}, {b}] = {sym('sp', a, b)}")
-        if a != b:
-            code(f"Ps[k, {b}, {a}] = {sym('sp', a, b)}")
-    code.dedent()
-    code("end = begin")
-    code.dedent()
-    code.dedent()
+    store_smoothed_and_close(code, d)
 
 
 def gen_predict(code, tr):
