@@ -9,7 +9,9 @@ Usage::
 For each kernel and n, with all four parameters free (amplitude, scale, mean,
 excess noise), times per point of: the log marginal likelihood, likelihood
 plus gradient, and the posterior at n query times (a new posterior and its
-n predictions; and n more predictions from it). Measured in the same run,
+n predictions; n more predictions from it, which keeps its smoothed states
+from its second prediction on; and, as ``resmooth``, n more predictions
+from a posterior made with ``keep=False``, which re-smooths every time). Measured in the same run,
 round-robin, best of ``--repeat`` (the machine is shared, so only the best
 of several runs and ratios taken within one run mean much):
 
@@ -53,6 +55,7 @@ from longwave import Model, Series, log_marginal_likelihood, posterior  # noqa: 
 from longwave._loops import kalman as general_loops  # noqa: E402
 from longwave.kernels import Matern12, Matern32, Matern52  # noqa: E402
 from longwave.methods import Exact, Kalman  # noqa: E402
+from longwave.methods.kalman import KalmanPosterior  # noqa: E402
 
 KERNELS = {
     "matern12": (Matern12, 0.5),
@@ -127,6 +130,9 @@ def time_kalman(name, series, repeat, with_general=False):
     tq = query_times(series, series.n)
     holder = {"post": posterior(model, series, method=Kalman())}
     holder["post"].predict(tq[:1])  # its checkpoints are now known
+    # the same without keeping smoothed states: every prediction re-smooths
+    lean = KalmanPosterior(model, series, fast=True, keep=False)
+    lean.predict(tq[:1])
 
     funcs = {
         "likelihood": lambda: log_marginal_likelihood(model, series, method=Kalman()),
@@ -134,8 +140,11 @@ def time_kalman(name, series, repeat, with_general=False):
                                                     gradient=True),
         # a new posterior and n predictions (its first prediction runs the backward pass)
         "posterior": lambda: posterior(model, series, method=Kalman()).predict(tq),
-        # n more predictions from a posterior that has its checkpoints
+        # n more predictions from a posterior that has its checkpoints (from the
+        # second one on, it keeps its smoothed states: best of runs is that case)
         "predict": lambda: holder["post"].predict(tq),
+        # n more predictions from a posterior that re-smooths every time (keep=False)
+        "resmooth": lambda: lean.predict(tq),
     }
     if name == "matern32":
         work = new_work()

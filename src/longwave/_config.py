@@ -66,11 +66,17 @@ class Settings:
         (``LONGWAVE_SPARSE_BLOCK_MB``, default 16): the chunk is this divided
         by ``8 m``, capped at ``chunk_size``. A few such blocks are alive at
         once, so memory stays O(m * chunk) whatever n is.
+    keep_smoothed_mb : int
+        Largest size in MB of the smoothed states a Kalman posterior keeps
+        once it is asked for a second prediction (``LONGWAVE_KEEP_SMOOTHED_MB``,
+        default 512: n = 5e6 at state dimension 3). Larger posteriors keep
+        one checkpoint per chunk and re-smooth the chunks each prediction touches.
     """
 
     exact_max_n: int
     chunk_size: int
     sparse_block_mb: int = 16
+    keep_smoothed_mb: int = 512
 
     def sparse_chunk(self, m: int) -> int:
         """Points per chunk for a sparse method with ``m`` inducing times."""
@@ -83,6 +89,7 @@ def settings() -> Settings:
         exact_max_n=_env_int("LONGWAVE_EXACT_MAX_N", 10_000),
         chunk_size=_env_int("LONGWAVE_CHUNK", 65_536),
         sparse_block_mb=_env_int("LONGWAVE_SPARSE_BLOCK_MB", 16),
+        keep_smoothed_mb=_env_int("LONGWAVE_KEEP_SMOOTHED_MB", 512),
     )
 
 

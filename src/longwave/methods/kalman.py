@@ -238,9 +238,16 @@ class KalmanPosterior(Posterior):
         when the model allows (d <= 3), as :meth:`Kalman.posterior` does; they
         agree with the general loops to rounding. The stored states are then in
         the basis of :class:`FastForm` (first component observed).
+    keep : bool, optional
+        From the second prediction on, keep every block's smoothed states, so
+        that later predictions skip the smoother (``n (d + d^2)`` more doubles).
+        Default: when they fit ``keep_smoothed_mb`` (``longwave._config``).
+        Not on the first prediction: a posterior predicted once (the common
+        case) then touches no more memory than it needs, and fresh memory is
+        slow to touch on virtual machines.
     """
 
-    def __init__(self, model, series, block=None, fast=False):
+    def __init__(self, model, series, block=None, fast=False, keep=None):
         super().__init__(model, series)
         ss = model.kernel.state_space()
         self._ss = ss
@@ -271,6 +278,9 @@ class KalmanPosterior(Posterior):
         self._ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
         self._have_ckpt = False
         self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
+        self._may_keep = (n * (d + d * d) * 8 <= settings().keep_smoothed_mb * 2**20
+                          if keep is None else bool(keep))
+        self._kept = {}  # (lo, end) -> smoothed states, filled from the second prediction on
 
     def _block_end(self, j):
         return int(self._starts[j + 1]) if j + 1 < self._starts.size else self.series.n
@@ -280,14 +290,19 @@ class KalmanPosterior(Posterior):
 
         ``end`` is a block start (whose checkpoint is known) or ``n``.
         """
+        kept = self._kept.get((lo, end))
+        if kept is not None:
+            return kept
         cached = self._cache
         if cached is not None and cached[0] == lo and cached[1] == end:
-            return cached[2], cached[3]
-        if self._form is not None:
+            ms, Ps = cached[2], cached[3]
+        elif self._form is not None:
             ms, Ps = self._smoothed_fast(lo, end)
         else:
             ms, Ps = self._smoothed_general(lo, end)
         self._cache = (lo, end, ms, Ps)
+        if self._may_keep and self._have_ckpt:  # a later prediction: worth keeping
+            self._kept[(lo, end)] = (ms, Ps)
         return ms, Ps
 
     def _smoothed_general(self, lo, end):

@@ -1,0 +1,57 @@
+"""A Kalman posterior that keeps its smoothed states, against one that re-smooths.
+
+Sources: the dense posterior (Rasmussen & Williams 2006, eqs. 2.22-2.24,
+computed by ``Exact``) for the values, and the checkpointed posterior (the
+same recursion, re-smoothing each block) for the equality of the two paths.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from longwave import Model, Series
+from longwave.kernels import Matern12, Matern52
+from longwave.methods import Exact
+from longwave.methods.kalman import KalmanPosterior
+
+
+@pytest.fixture
+def case(rng):
+    t = np.sort(rng.uniform(0, 300, 900))
+    t[100:104] = t[100]  # repeated times
+    y = np.sin(t / 11.0) + 0.2 * rng.standard_normal(t.size)
+    series = Series(t, y, rng.uniform(0.1, 0.3, t.size))
+    model = Model(Matern52(amplitude=1.0, scale=8.0) + Matern12(amplitude=0.3, scale=2.0),
+                  mean=0.1, excess_noise=0.05)
+    queries = rng.uniform(-20, 320, 700)  # unsorted, beyond both ends too
+    return model, series, queries
+
+
+@pytest.mark.parametrize("fast", [False, True])
+def test_kept_states_give_the_predictions_of_re_smoothing(case, fast):
+    model, series, queries = case
+    if fast:
+        model = Model(Matern52(amplitude=1.0, scale=8.0), mean=0.1, excess_noise=0.05)
+    kept = KalmanPosterior(model, series, block=128, fast=fast)
+    lean = KalmanPosterior(model, series, block=128, fast=fast, keep=False)
+    for post in (kept, lean):
+        post.predict(np.sort(queries))  # the first prediction runs the backward pass
+    assert not kept._kept  # nothing kept by the first prediction
+    first = kept.predict(queries)  # the second re-smooths and keeps
+    assert len(kept._kept) == kept._starts.size and not lean._kept
+    a, b = kept.predict(queries[::-1]), lean.predict(queries[::-1])
+    np.testing.assert_allclose(first.mean, a.mean[::-1], rtol=1e-14, atol=1e-14)
+    np.testing.assert_allclose(a.mean, b.mean, rtol=1e-13, atol=1e-13)
+    np.testing.assert_allclose(a.var, b.var, rtol=1e-12, atol=1e-14)
+    ref = Exact().posterior(model, series).predict(queries[::-1])
+    np.testing.assert_allclose(a.mean, ref.mean, rtol=1e-8, atol=1e-9)
+    np.testing.assert_allclose(a.var, ref.var, rtol=1e-8, atol=1e-10)
+
+
+def test_the_memory_budget_decides_by_default(case, monkeypatch):
+    model, series, _ = case
+    assert KalmanPosterior(model, series)._may_keep  # 900 points: well inside 512 MB
+    monkeypatch.setenv("LONGWAVE_KEEP_SMOOTHED_MB", "1")
+    big = Series(np.arange(60_000.0), np.zeros(60_000), 0.1)  # 60000 * 20 doubles = 9.2 MB
+    assert not KalmanPosterior(model, big)._may_keep
