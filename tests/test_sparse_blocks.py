@@ -1,7 +1,7 @@
 """Compiled block loops (``_loops/blocks.py``) against plain-numpy twins.
 
 Sources: each primitive against the kernel's own numpy ``value``/``grad``
-(Rasmussen & Williams 2006, eqs. 4.17 and 4.9) and the lag derivative against
+(Rasmussen & Williams 2006, eqs. 4.17 and 4.9; MacKay 1998, eq. 47) and the lag derivative against
 central differences (common practice); the flat sum-of-products form of
 composite kernels against the kernels' own ``value``/``grad``.
 """
@@ -13,7 +13,7 @@ import pytest
 from conftest import central_difference
 
 from longwave._loops import blocks as loops
-from longwave.kernels import Matern12, Matern32, Matern52, SquaredExp
+from longwave.kernels import Cosine, Matern12, Matern32, Matern52, Periodic, SquaredExp
 from longwave.methods.sparse_form import CompiledBlocks, NumpyBlocks, block_evaluator, flat_form
 
 
@@ -34,6 +34,10 @@ KERNELS = {
     "m32": lambda: Matern32(amplitude=0.7, scale=0.9),
     "m52": lambda: Matern52(amplitude=1.1, scale=3.0),
     "se": lambda: SquaredExp(amplitude=0.9, scale=1.7),
+    "periodic": lambda: Periodic(amplitude=1.2, period=2.3, scale=0.8),
+    "cosine": lambda: Cosine(amplitude=0.7, period=3.1),
+    "quasi_periodic": lambda: Periodic(amplitude=1.0, period=2.3, scale=0.8)
+    * Matern32(amplitude=1.0, scale=9.0),
     "se_times_m12": lambda: SquaredExp(amplitude=0.9, scale=1.7) * Matern12(amplitude=1.0,
                                                                             scale=6.0),
     "sum": lambda: Matern32(amplitude=1.0, scale=2.0) + Matern52(amplitude=0.3, scale=0.5),
@@ -76,17 +80,31 @@ def test_square_contraction_equals_numpy_twin(case, rng):
     np.testing.assert_allclose(gz, ref_gz, rtol=1e-6, atol=1e-7)
 
 
-@pytest.mark.parametrize("cls", [Matern12, Matern32, Matern52, SquaredExp])
-def test_primitive_lag_derivative_equals_central_differences(cls):
-    kernel = cls(amplitude=1.4, scale=2.5)
-    par = np.array([1.4, 2.5, 0.0, 0.0])
+PRIMITIVES = {
+    "m12": (lambda: Matern12(amplitude=1.4, scale=2.5), [1.4, 2.5]),
+    "m32": (lambda: Matern32(amplitude=1.4, scale=2.5), [1.4, 2.5]),
+    "m52": (lambda: Matern52(amplitude=1.4, scale=2.5), [1.4, 2.5]),
+    "se": (lambda: SquaredExp(amplitude=1.4, scale=2.5), [1.4, 2.5]),
+    "periodic": (lambda: Periodic(amplitude=1.4, period=2.5, scale=0.7), [1.4, 2.5, 0.7]),
+    "cosine": (lambda: Cosine(amplitude=1.4, period=2.5), [1.4, 2.5]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(PRIMITIVES))
+def test_primitive_lag_derivative_equals_central_differences(case):
+    make, values = PRIMITIVES[case]
+    kernel = make()
+    cls = type(kernel)
+    par = np.zeros(loops.MAX_PARAMS)
+    par[:len(values)] = values
     out = np.empty(2 + loops.MAX_PARAMS)
     for tau in (0.3, 1.0, 4.0):
         loops.primitive(cls.loop_code, tau, par, out, True)
         numeric = central_difference(lambda x: kernel.value(x), np.array([tau]), 1e-6)[0, 0]
         assert out[0] == pytest.approx(float(kernel.value(tau)), rel=1e-14)
         assert out[1] == pytest.approx(float(numeric), rel=1e-7)
-        np.testing.assert_allclose(out[2:4], kernel.grad(np.array(tau)), rtol=1e-13)
+        np.testing.assert_allclose(out[2:2 + len(values)], kernel.grad(np.array(tau)),
+                                   rtol=1e-12, atol=1e-15)
 
 
 def test_flat_form_expands_a_product_of_sums():

@@ -30,6 +30,8 @@ CODE_MATERN12 = 1
 CODE_MATERN32 = 2
 CODE_MATERN52 = 3
 CODE_SQUARED_EXP = 4
+CODE_PERIODIC = 5
+CODE_COSINE = 6
 
 MAX_PARAMS = 4  # widest factor supported; raise it here if a kernel needs more
 # Decays beyond exp(-300) (5e-131) are written as exact zeros. They change nothing
@@ -54,7 +56,8 @@ def primitive(code, tau, par, out, with_grad):
     ``out[1]`` and ``dk/dlog(par[p])`` into ``out[2 + p]``.
 
     Matérn forms: Rasmussen & Williams 2006, eq. 4.17, with ``u = lam tau``;
-    the squared exponential: eq. 4.9.
+    the squared exponential: eq. 4.9; the periodic kernel: MacKay 1998, eq. 47; the
+    cosine: ``amp^2 cos(2 pi tau / period)``.
     """
     amp2 = par[0] * par[0]
     if code == CODE_MATERN12:
@@ -93,6 +96,25 @@ def primitive(code, tau, par, out, with_grad):
             out[1] = -x * inv * e
             out[2] = 2.0 * e
             out[3] = x * x * e
+    elif code == CODE_PERIODIC:  # amp^2 exp(-2 sin^2(theta) / scale^2), theta = pi tau / period
+        theta = math.pi * tau / par[1]
+        s = math.sin(theta)
+        inv2 = 1.0 / (par[2] * par[2])
+        e = amp2 * math.exp(-2.0 * s * s * inv2)
+        out[0] = e
+        if with_grad:
+            s2t = math.sin(2.0 * theta)  # d(2 sin^2 theta)/dtheta = 2 sin(2 theta)
+            out[1] = -e * 2.0 * s2t * inv2 * (math.pi / par[1])
+            out[2] = 2.0 * e
+            out[3] = e * 2.0 * s2t * inv2 * theta  # dtheta/dlog(period) = -theta
+            out[4] = e * 4.0 * s * s * inv2
+    elif code == CODE_COSINE:  # amp^2 cos(phi), phi = 2 pi tau / period
+        phi = 2.0 * math.pi * tau / par[1]
+        out[0] = amp2 * math.cos(phi)
+        if with_grad:
+            out[1] = -amp2 * math.sin(phi) * (2.0 * math.pi / par[1])
+            out[2] = 2.0 * out[0]
+            out[3] = amp2 * math.sin(phi) * phi
     else:
         out[0] = math.nan
         if with_grad:

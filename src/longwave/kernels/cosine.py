@@ -21,6 +21,7 @@ import math
 
 import numpy as np
 
+from .._loops.blocks import CODE_COSINE
 from .base import Primitive
 from .statespace import StateSpace
 
@@ -48,6 +49,7 @@ class Cosine(Primitive):
     """
 
     param_names_local = ("amplitude", "period")
+    loop_code = CODE_COSINE  # compiled form in _loops/blocks.py (sparse methods)
     default_label = "cosine"
     has_state_space_form = True
 

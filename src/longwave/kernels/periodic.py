@@ -41,6 +41,7 @@ import math
 import numpy as np
 from scipy.special import ive
 
+from .._loops.blocks import CODE_PERIODIC
 from .base import Primitive
 from .cosine import ROTATION
 from .statespace import StateSpace
@@ -157,6 +158,7 @@ class Periodic(Primitive):
 
     param_names_local = ("amplitude", "period", "scale")
     default_label = "periodic"
+    loop_code = CODE_PERIODIC  # compiled form in _loops/blocks.py (sparse methods)
     has_state_space_form = True
 
     def __init__(self, *, order: int | None = None, tolerance: float = DEFAULT_TOLERANCE,
