@@ -125,9 +125,11 @@ def test_tight_tolerance_picks_exact_and_loose_a_cheap_sparse_setting(squared_ex
     verdicts = {v.label: v.verdict for v in tight.table}
     assert verdicts["exact:max_n=500"] == "not for full series"
     loose = choose_setting(result.methods, Tolerance.from_nats(0.05))
-    assert loose.choice is not None and loose.choice.startswith("vfe:")
-    chosen = _by_label(result)[loose.choice]
-    assert chosen.cost_seconds < _by_label(result)["exact"].cost_seconds
+    # Accuracy decides which settings qualify (deterministic: a sparse one does);
+    # measured cost decides among them, so the test checks the rule, not a timing.
+    meeting = [v for v in loose.table if v.verdict in ("recommended", "meets tolerance")]
+    assert any(v.label.startswith("vfe:") for v in meeting)
+    assert loose.choice == min(meeting, key=lambda v: v.cost_seconds).label
 
 
 def test_nothing_within_tolerance_gives_a_warning(squared_exp_run):
