@@ -691,6 +691,21 @@ def store_smoothed_and_close(code, d):
     code.dedent()
 
 
+def lane_transition(code, tr, name, h, e, rows):
+    """Lanes ``{name}{a}{c}`` of the transition: from the exp-poly form (``e`` times a
+    polynomial in ``h``) for a single rate, else loaded from the ``{rows}`` arrays."""
+    d = tr.d
+    for a in range(d):
+        for c in range(d):
+            if tr.single:
+                poly = f"vc{d - 1}{a}{c}"
+                for k in range(d - 2, -1, -1):
+                    poly = f"vfma({h}, {poly}, vc{k}{a}{c})"
+                code(f"{name}{a}{c} = vmul({e}, {poly})")
+            else:
+                code(f"{name}{a}{c} = vload({rows}{a * d + c}, b)")
+
+
 def smooth_gain_lanes(code, tr):
     """RTS gains of the four steps ``b .. b + 3`` as 4-tuples, stored to ``gain`` rows.
 
@@ -713,15 +728,7 @@ def smooth_gain_lanes(code, tr):
         code("ve = vload(re, b)")
         if d > 1:
             code("vh = vload(rh, b)")
-    for a in range(d):
-        for c in range(d):
-            if tr.single:
-                poly = f"vc{d - 1}{a}{c}"
-                for k in range(d - 2, -1, -1):
-                    poly = f"vfma(vh, {poly}, vc{k}{a}{c})"
-                code(f"va{a}{c} = vmul(ve, {poly})")
-            else:
-                code(f"va{a}{c} = vload(ra{a * d + c}, b)")
+    lane_transition(code, tr, "va", "vh", "ve", "ra")
     for a, b in upper(d):
         code(f"{sym('vf', a, b)} = {gather(f'Pf[{{k}}, {a}, {b}]')}")
     for a in range(d):
@@ -1038,15 +1045,7 @@ def predict_vector_body(code, tr):
         return "(" + ", ".join(expr.format(k=k) for k in ks) + ")"
 
     def transition(name, h, e, rows):
-        for a in range(d):
-            for c in range(d):
-                if tr.single:
-                    poly = f"vc{d - 1}{a}{c}"
-                    for k in range(d - 2, -1, -1):
-                        poly = f"vfma({h}, {poly}, vc{k}{a}{c})"
-                    code(f"{name}{a}{c} = vmul({e}, {poly})")
-                else:
-                    code(f"{name}{a}{c} = vload({rows}{a * d + c}, b)")
+        lane_transition(code, tr, name, h, e, rows)
 
     if tr.single:
         code("e1 = vload(re1, b)", "e2 = vload(re2, b)")
