@@ -131,3 +131,24 @@ def test_killed_survey_conversion_leaves_existing_file_intact(tmp_path):
     assert path.read_bytes() == before
     with SurveyFile(path) as sf:
         assert sf.ids.tolist() == ["old"]
+
+
+def test_finished_files_get_the_permissions_of_any_new_file(tmp_path):
+    # Source: POSIX open(2): a new file gets mode 0666 masked by the umask (common
+    # practice); the temporary file behind an atomic write must not stay private.
+    import os
+    import stat
+
+    from longwave.storage import _h5
+
+    old = os.umask(0o027)
+    try:
+        with _h5.atomic_path(tmp_path / "out.h5", overwrite=False) as tmp:
+            with _h5.open_h5(tmp, "w") as f:
+                f["x"] = [1.0]
+        plain = tmp_path / "plain.txt"
+        plain.write_text("x")
+    finally:
+        os.umask(old)
+    got = stat.S_IMODE((tmp_path / "out.h5").stat().st_mode)
+    assert got == stat.S_IMODE(plain.stat().st_mode) == 0o640

@@ -236,6 +236,20 @@ def fsync_dir(directory) -> None:
         os.close(fd)
 
 
+def _umask() -> int:
+    """The process umask, read without changing it where Linux allows."""
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except OSError:
+        pass
+    mask = os.umask(0o022)  # elsewhere: set and restore at once
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_path(path, *, overwrite: bool, durable: bool = True):
     """Yield a temporary path beside ``path``; on success move it onto ``path``.
@@ -249,6 +263,9 @@ def atomic_path(path, *, overwrite: bool, durable: bool = True):
         raise FileExistsError(f"{path} exists; pass overwrite=True to replace it")
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    # mkstemp makes the file private (0600); the finished file should get the
+    # permissions any new file of this process gets (0666 less the umask).
+    os.fchmod(fd, 0o666 & ~_umask())
     os.close(fd)
     try:
         yield Path(tmp)
