@@ -126,13 +126,7 @@ def filter_loglik(t, resid, noise, H, Pinf, trans):
             S += H[a] * acc
             v -= H[a] * m[a]
         total += math.log(S) + v * v / S
-        gain = v / S
-        for a in range(d):
-            m[a] += Ph[a] * gain
-        for a in range(d):
-            for b in range(a, d):
-                P[a, b] -= Ph[a] * Ph[b] / S
-                P[b, a] = P[a, b]
+        update_state(v, S, Ph, m, P)
     return -0.5 * (total + n * LOG_2PI)
 
 

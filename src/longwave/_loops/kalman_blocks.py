@@ -206,13 +206,7 @@ def filter_loglik(t, resid, noise, H, Pinf, trans, slots):
                 _sandwich(blocks, bstart, P, Pinf, work, P)
         v, S = _update(m, P, H, resid[i], noise[i], Ph)
         total += math.log(S) + v * v / S
-        gain = v / S
-        for a in range(d):
-            m[a] += Ph[a] * gain
-        for a in range(d):
-            for e in range(a, d):
-                P[a, e] -= Ph[a] * Ph[e] / S
-                P[e, a] = P[a, e]
+        update_state(v, S, Ph, m, P)
     return -0.5 * (total + n * LOG_2PI)
 
 
