@@ -179,10 +179,10 @@ def _connect(stack, workers, scheduler, quiet, timeout):
 
 
 def _check_workers_read(client, source) -> None:
-    """Fail early, and clearly, if the workers cannot read the survey file."""
-    if not source.stored:
-        raise ValueError(f"workers_read=True needs a survey HDF5 input; {source.path} is a long "
-                         "table, which the client reads (leave workers_read unset)")
+    """Fail early, and clearly, if the workers cannot read the survey file.
+
+    A long-table input raises ``ValueError`` from ``SurveyInput.stored_batches``.
+    """
     probe = next(source.stored_batches(1), None)
     if probe is None:
         return
