@@ -212,12 +212,12 @@ def vfe_grad_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     acc.n += t.size
 
 
-def _fitc_raw_block(ctx, t, err):
+def _fitc_raw_block(ctx, t, s2):
     """Window, its block ``k`` (w, c), ``Kuu^-1 k`` and ``D`` of one chunk (raw mode)."""
     win = ctx.window(t)
     k = ctx.blocks.block(ctx.z[win], t, np.ones(t.size))
     kk = ctx.kinv[sparse_windows.square(win)] @ k
-    d = _noise(ctx, err) + np.maximum(ctx.kd - np.einsum("ac,ac->c", k, kk), 0.0)
+    d = s2 + np.maximum(ctx.kd - np.einsum("ac,ac->c", k, kk), 0.0)
     return win, k, kk, d
 
 
@@ -230,7 +230,7 @@ def fitc_value_chunk(ctx: ChunkContext, t, y, err, acc: Accumulator) -> None:
     s2 = _noise(ctx, err)
     r = y - ctx.mean
     if ctx.raw:
-        win, k, _, d = _fitc_raw_block(ctx, t, err)
+        win, k, _, d = _fitc_raw_block(ctx, t, s2)
         sq = sparse_windows.square(win)
         kd_ = k * (1.0 / np.sqrt(d))
         acc.raw_mat[sq] += kd_ @ kd_.T
@@ -304,7 +304,7 @@ def _fitc_grad_raw(ctx, t, y, err, acc):
     ``sum delta a a^T`` is accumulated unwhitened in ``raw_mat``.
     """
     r = y - ctx.mean
-    win, k, kk, d = _fitc_raw_block(ctx, t, err)
+    win, k, kk, d = _fitc_raw_block(ctx, t, _noise(ctx, err))
     sq = sparse_windows.square(win)
     mk = ctx.adj_mat[sq] @ k
     h = ctx.adj_vec[win]
