@@ -253,3 +253,24 @@ def test_the_writer_drops_a_result_for_an_id_already_written(tmp_path):
         writer.consume(fits[1:])
     assert tally.duplicates == 2 and tally.count == 3
     assert sorted(read_rows(tmp_path / "w.h5")) == ["o0", "o1", "o2"]
+
+
+def _worker_environment():
+    return {k: os.environ.get(k) for k in
+            ("MALLOC_TRIM_THRESHOLD_", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
+             "NUMBA_NUM_THREADS")}
+
+
+def test_embedded_workers_run_one_thread_and_keep_glibc_adaptive(monkeypatch):
+    # dask's nanny sets MALLOC_TRIM_THRESHOLD_=65536 by default (its
+    # distributed.nanny.pre-spawn-environ), which fixes glibc's thresholds; the
+    # embedded cluster drops it and keeps the one-thread settings. The nanny
+    # copies its settings into this process's environment, which the workers
+    # inherit, so a cluster started earlier in this process is undone first.
+    from longwave.survey.runner import embedded_cluster
+
+    monkeypatch.delenv("MALLOC_TRIM_THRESHOLD_", raising=False)
+    with embedded_cluster(1, quiet=True) as lc, Client(lc) as client:
+        (env,) = client.run(_worker_environment).values()
+    assert env == {"MALLOC_TRIM_THRESHOLD_": None, "OMP_NUM_THREADS": "1",
+                   "OPENBLAS_NUM_THREADS": "1", "NUMBA_NUM_THREADS": "1"}

@@ -141,11 +141,18 @@ def embedded_cluster(workers: int, *, quiet: bool = False) -> LocalCluster:
     """The cluster a survey starts when given no scheduler (use as a context manager).
 
     ``workers`` single-threaded worker processes bound to 127.0.0.1, BLAS and
-    numba pools at one thread, the statistical profiler off.
+    numba pools at one thread, the statistical profiler off, and glibc's
+    allocator left at its adaptive defaults.
     """
     # The workers' profiler samples every task's stack every 10 ms, which
     # costs about 5-10% of a fit's CPU time; nothing here reads it.
-    with dask.config.set({"distributed.worker.profile.enabled": False}):
+    # The nanny also sets MALLOC_TRIM_THRESHOLD_=65536 in each worker by
+    # default. Any such setting turns off glibc's adaptive mmap threshold, so
+    # every array above 128 KiB is mapped and unmapped afresh; a serial survey
+    # run with it set took 11-17% more CPU (bench/bench_survey.py's ceiling row
+    # shows the gap). A None value drops the variable (dask skips None values).
+    with dask.config.set({"distributed.worker.profile.enabled": False,
+                          "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
         return LocalCluster(
             n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
             dashboard_address=None, silence_logs=logging.ERROR if quiet else logging.WARNING,
