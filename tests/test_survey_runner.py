@@ -233,6 +233,7 @@ def test_a_cluster_that_cannot_run_tasks_stops_the_run(tmp_path):
 def test_the_writer_drops_a_result_for_an_id_already_written(tmp_path):
     # The client-side guard behind "no result is written twice" (runner._Writer),
     # fed the same batch twice as a resubmitted task could deliver it.
+    from longwave.survey.idset import IdSet
     from longwave.survey.runner import _Writer
     from longwave.survey.summary import Tally
 
@@ -248,7 +249,7 @@ def test_the_writer_drops_a_result_for_an_id_already_written(tmp_path):
 
     with ResultStore(tmp_path / "w.h5", param_names=["matern32.amplitude", "matern32.scale",
                                                      "mean", "excess_noise"]) as store:
-        writer = _Writer(store, set(), Bar(), tally)
+        writer = _Writer(store, IdSet(), Bar(), tally)
         writer.consume(fits)
         writer.consume(fits[1:])
     assert tally.duplicates == 2 and tally.count == 3

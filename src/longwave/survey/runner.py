@@ -45,6 +45,7 @@ from tqdm import tqdm
 from .. import methods
 from ..storage import ObjectResult, ResultStore
 from ..storage.stored_batch import StoredBatch
+from .idset import IdSet
 from .initial import param_names
 from .inputs import SurveyInput
 from .pipeline import AUTO, ObjectFit, PipelineConfig, fit_batch, warm_up
@@ -55,16 +56,17 @@ from .summary import SurveySummary, Tally
 class _Writer:
     """The single consumer: writes results and predictions, tallies, moves the bar."""
 
-    def __init__(self, store, seen: set, bar, tally: Tally):
+    def __init__(self, store, seen: IdSet, bar, tally: Tally):
+        # ``seen``: every id written or stored, compact (survey/idset.py) so the
+        # guard does not grow the client by ~90 bytes an object.
         self.store, self.seen, self.bar, self.tally = store, seen, bar, tally
 
     def consume(self, fits: list[ObjectFit]) -> None:
         for fit in fits:
             result = fit.result
-            if result.id in self.seen:
+            if not self.seen.add(result.id):
                 self.tally.duplicates += 1
                 continue
-            self.seen.add(result.id)
             if fit.prediction is not None:
                 p = fit.prediction
                 self.store.append_prediction(result.id, p.t, p.mean, p.std)
@@ -326,7 +328,7 @@ def run_survey(input, out, *, model="matern32", method: str = AUTO, clip=None,
             total=source.remaining(done), unit="obj", file=sys.stderr, dynamic_ncols=True,
             disable=quiet or not progress, mininterval=0.5, desc="survey"))
         tally = Tally()
-        writer = _Writer(store, set(done), bar, tally)
+        writer = _Writer(store, IdSet(done), bar, tally)
         batches = (source.stored_batches(int(batch_size), skip=done)
                    if client is not None and workers_read
                    else source.batches(int(batch_size), skip=done))
