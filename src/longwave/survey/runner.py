@@ -151,9 +151,12 @@ def embedded_cluster(workers: int, *, quiet: bool = False) -> LocalCluster:
     # costs about 5-10% of a fit's CPU time; nothing here reads it.
     # The nanny also sets MALLOC_TRIM_THRESHOLD_=65536 in each worker by
     # default. Any such setting turns off glibc's adaptive mmap threshold, so
-    # every array above 128 KiB is mapped and unmapped afresh; a serial survey
-    # run with it set took 11-17% more CPU (bench/bench_survey.py's ceiling row
-    # shows the gap). A None value drops the variable (dask skips None values).
+    # every array above 128 KiB is mapped and unmapped afresh; serial survey
+    # runs of 500 objects with it set took 11-17% more CPU than without, run
+    # alternately. A None value drops the variable (dask skips None values).
+    # The nanny also copies it into this process's environment, which later
+    # workers inherit: a default cluster started earlier in this process
+    # brings it back (not undone here).
     # Dask's housekeeping runs on timers: an idle cluster of two workers took
     # 9% of a core in this process (scheduler and nannies) and 7% in the
     # workers, mostly the 20 ms event-loop health tick; at the intervals below,
