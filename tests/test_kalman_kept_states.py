@@ -37,9 +37,10 @@ def test_kept_states_give_the_predictions_of_re_smoothing(case, fast):
     lean = KalmanPosterior(model, series, block=128, fast=fast, keep=False)
     for post in (kept, lean):
         post.predict(np.sort(queries))  # the first prediction runs the backward pass
-    assert not kept._kept  # nothing kept by the first prediction
+    (sweep,) = kept._sweeps  # 900 points: one sequential pass
+    assert not sweep.kept  # nothing kept by the first prediction
     first = kept.predict(queries)  # the second re-smooths and keeps
-    assert len(kept._kept) == kept._starts.size and not lean._kept
+    assert len(sweep.kept) == sweep.starts.size and not lean._sweeps[0].kept
     a, b = kept.predict(queries[::-1]), lean.predict(queries[::-1])
     np.testing.assert_allclose(first.mean, a.mean[::-1], rtol=1e-14, atol=1e-14)
     np.testing.assert_allclose(a.mean, b.mean, rtol=1e-13, atol=1e-13)

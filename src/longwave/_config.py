@@ -71,12 +71,18 @@ class Settings:
         once it is asked for a second prediction (``LONGWAVE_KEEP_SMOOTHED_MB``,
         default 512: n = 5e6 at state dimension 3). Larger posteriors keep
         one checkpoint per chunk and re-smooth the chunks each prediction touches.
+    split_min_n : int
+        Shortest series whose Kalman posterior is built in two halves on two
+        cores when numba may use two threads (``LONGWAVE_SPLIT_MIN_N``,
+        default 100000; see ``methods/kalman_split.py``). Below it, starting a
+        thread and joining the halves cost more than they save.
     """
 
     exact_max_n: int
     chunk_size: int
     sparse_block_mb: int = 16
     keep_smoothed_mb: int = 512
+    split_min_n: int = 100_000
 
     def sparse_chunk(self, m: int) -> int:
         """Points per chunk for a sparse method with ``m`` inducing times."""
@@ -90,6 +96,7 @@ def settings() -> Settings:
         chunk_size=_env_int("LONGWAVE_CHUNK", 65_536),
         sparse_block_mb=_env_int("LONGWAVE_SPARSE_BLOCK_MB", 16),
         keep_smoothed_mb=_env_int("LONGWAVE_KEEP_SMOOTHED_MB", 512),
+        split_min_n=_env_int("LONGWAVE_SPLIT_MIN_N", 100_000),
     )
 
 

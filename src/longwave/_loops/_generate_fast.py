@@ -315,7 +315,7 @@ def gen_loglik(code, tr):
 def gen_filter_store(code, tr):
     d = tr.d
     code(
-        "@njit(cache=True, fastmath={'contract'})",
+        "@njit(cache=True, nogil=True, fastmath={'contract'})",
         f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, mf, Pf):",
         f'    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = {d}."""',
     )
@@ -611,7 +611,7 @@ def gen_smooth_scalar(code, tr):
     """
     d = tr.d
     code(
-        "@njit(cache=True, fastmath={'contract'})",
+        "@njit(cache=True, nogil=True, fastmath={'contract'})",
         f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
         f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``.',
         "",
@@ -803,7 +803,7 @@ def gen_smooth(code, tr):
         return
     ns = d * (d + 1) // 2
     code(
-        "@njit(cache=True, fastmath={'contract'})",
+        "@njit(cache=True, nogil=True, fastmath={'contract'})",
         f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
         f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``.',
         "",
@@ -886,19 +886,28 @@ def gen_smooth(code, tr):
     store_smoothed_and_close(code, d)
 
 
-def gen_predict(code, tr):
+def gen_predict(code, tr, serial=False):
     d = tr.d
     dd = d * d
+    flags = "nogil=True" if serial else "parallel=True"
+    name = "predict_serial" if serial else "predict"
+    how = (
+        ["    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with",
+         "    the GIL released: for callers that run two of these at once in threads",
+         "    (numba's default thread pool does not allow two parallel regions at once)."]
+        if serial else
+        ["    Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with",
+         "    its own work array."]
+    )
     code(
-        "@njit(cache=True, parallel=True, fastmath={'contract'})",
-        f"def predict_d{d}{tr.suffix}(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):",
+        f"@njit(cache=True, {flags}, fastmath={{'contract'}})",
+        f"def {name}_d{d}{tr.suffix}(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):",
         f'    """Posterior mean and variance of ``f = x_0`` at query times, d = {d}.',
         "",
         "    As ``kalman.predict_between`` (``idx[i]`` is the last training index with",
         "    ``t <= tq[i]``, -1 before the first) but only the first component is formed:",
         "    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.",
-        "    Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with",
-        "    its own work array.",
+        *how,
         '    """',
     )
     code.indent()
@@ -1102,7 +1111,12 @@ def predict_vector_body(code, tr):
     code("vstore(out_mean, i, vmean)", "vstore(out_var, i, vmax0(vvar))")
 
 
-GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_smooth, gen_predict)
+def gen_predict_serial(code, tr):
+    gen_predict(code, tr, serial=True)
+
+
+GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_smooth, gen_predict,
+              gen_predict_serial)
 
 
 def module_source() -> str:

@@ -1819,7 +1819,7 @@ def loglik_grad_d3_multi(data, scal, pinf, trans, sens, work):
     return -0.5 * (logsum + quad + n * LOG_2PI), grad
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d1_single(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 1."""
     t, y, err = data
@@ -1859,7 +1859,7 @@ def filter_store_d1_single(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 0, 0] = M00 + pf00
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d2_single(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 2."""
     t, y, err = data
@@ -1930,7 +1930,7 @@ def filter_store_d2_single(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 1, 1] = M11 + pf11
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d3_single(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 3."""
     t, y, err = data
@@ -2053,7 +2053,7 @@ def filter_store_d3_single(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 2, 2] = M22 + pf22
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d1_multi(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 1."""
     t, y, err = data
@@ -2089,7 +2089,7 @@ def filter_store_d1_multi(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 0, 0] = M00 + pf00
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d2_multi(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 2."""
     t, y, err = data
@@ -2148,7 +2148,7 @@ def filter_store_d2_multi(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 1, 1] = M11 + pf11
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
     """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 3."""
     t, y, err = data
@@ -2240,7 +2240,7 @@ def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
             Pf[i, 2, 2] = M22 + pf22
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
 
@@ -2294,7 +2294,7 @@ def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         end = begin
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
 
@@ -2404,7 +2404,7 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         end = begin
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
 
@@ -2694,7 +2694,7 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         end = begin
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
 
@@ -2744,7 +2744,7 @@ def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         end = begin
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
 
@@ -2842,7 +2842,7 @@ def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         end = begin
 
 
-@njit(cache=True, fastmath={'contract'})
+@njit(cache=True, nogil=True, fastmath={'contract'})
 def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
     """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
 
@@ -4035,6 +4035,1252 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
     the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 18, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_transition(cnt, trans, work, ROW_A + 9)
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf02 = vsplat(pf02)
+        vpf11 = vsplat(pf11)
+        vpf12 = vsplat(pf12)
+        vpf22 = vsplat(pf22)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 9]
+        ra1 = work[ROW_A + 1]
+        rb1 = work[ROW_A + 10]
+        ra2 = work[ROW_A + 2]
+        rb2 = work[ROW_A + 11]
+        ra3 = work[ROW_A + 3]
+        rb3 = work[ROW_A + 12]
+        ra4 = work[ROW_A + 4]
+        rb4 = work[ROW_A + 13]
+        ra5 = work[ROW_A + 5]
+        rb5 = work[ROW_A + 14]
+        ra6 = work[ROW_A + 6]
+        rb6 = work[ROW_A + 15]
+        ra7 = work[ROW_A + 7]
+        rb7 = work[ROW_A + 16]
+        ra8 = work[ROW_A + 8]
+        rb8 = work[ROW_A + 17]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    a01 = vload(ra1, b)
+                    a02 = vload(ra2, b)
+                    a10 = vload(ra3, b)
+                    a11 = vload(ra4, b)
+                    a12 = vload(ra5, b)
+                    a20 = vload(ra6, b)
+                    a21 = vload(ra7, b)
+                    a22 = vload(ra8, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq02 = vsub((Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2]), vpf02)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    qq12 = vsub((Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2]), vpf12)
+                    qq22 = vsub((Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2]), vpf22)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
+                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
+                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
+                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
+                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
+                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
+                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
+                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
+                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
+                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
+                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
+                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
+                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
+                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
+                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    e00 = vload(rb0, b)
+                    e01 = vload(rb1, b)
+                    e02 = vload(rb2, b)
+                    e10 = vload(rb3, b)
+                    e11 = vload(rb4, b)
+                    e12 = vload(rb5, b)
+                    e20 = vload(rb6, b)
+                    e21 = vload(rb7, b)
+                    e22 = vload(rb8, b)
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq02 = vsub(sp02, vpf02)
+                    qq11 = vsub(sp11, vpf11)
+                    qq12 = vsub(sp12, vpf12)
+                    qq22 = vsub(sp22, vpf22)
+                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
+                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
+                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
+                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
+                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
+                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
+                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
+                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
+                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
+                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
+                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
+                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    l20 = vmul(pp02, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
+                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
+                    iv2 = vrecip_pos(dg2)
+                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
+                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
+                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
+                    g2 = vmul(z2, iv2)
+                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
+                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
+                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
+                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
+                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
+                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
+                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
+                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sm1 = 0.0
+                sm2 = 0.0
+                sp00 = pf00
+                sp01 = pf01
+                sp02 = pf02
+                sp11 = pf11
+                sp12 = pf12
+                sp22 = pf22
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq02 = src_P[k, 0, 2] - pf02
+                qq11 = src_P[k, 1, 1] - pf11
+                qq12 = src_P[k, 1, 2] - pf12
+                qq22 = src_P[k, 2, 2] - pf22
+                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
+                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
+                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
+                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
+                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
+                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
+                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
+                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
+                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
+                sp00 = w00 * a00 + w01 * a01 + w02 * a02
+                sp01 = w00 * a10 + w01 * a11 + w02 * a12
+                sp02 = w00 * a20 + w01 * a21 + w02 * a22
+                sp11 = w10 * a10 + w11 * a11 + w12 * a12
+                sp12 = w10 * a20 + w11 * a21 + w12 * a22
+                sp22 = w20 * a20 + w21 * a21 + w22 * a22
+                sp00 += pf00
+                sp01 += pf01
+                sp02 += pf02
+                sp11 += pf11
+                sp12 += pf12
+                sp22 += pf22
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
+                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                e00 = work[ROW_A + 9 + 0, b]
+                e01 = work[ROW_A + 9 + 1, b]
+                e02 = work[ROW_A + 9 + 2, b]
+                e10 = work[ROW_A + 9 + 3, b]
+                e11 = work[ROW_A + 9 + 4, b]
+                e12 = work[ROW_A + 9 + 5, b]
+                e20 = work[ROW_A + 9 + 6, b]
+                e21 = work[ROW_A + 9 + 7, b]
+                e22 = work[ROW_A + 9 + 8, b]
+                qq00 = sp00 - pf00
+                qq01 = sp01 - pf01
+                qq02 = sp02 - pf02
+                qq11 = sp11 - pf11
+                qq12 = sp12 - pf12
+                qq22 = sp22 - pf22
+                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
+                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
+                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
+                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
+                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
+                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
+                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
+                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
+                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
+                pp00 = w00 * e00 + w01 * e01 + w02 * e02
+                pp01 = w00 * e10 + w01 * e11 + w02 * e12
+                pp02 = w00 * e20 + w01 * e21 + w02 * e22
+                pp11 = w10 * e10 + w11 * e11 + w12 * e12
+                pp12 = w10 * e20 + w11 * e21 + w12 * e22
+                pp22 = w20 * e20 + w21 * e21 + w22 * e22
+                pp00 += pf00
+                pp01 += pf01
+                pp02 += pf02
+                pp11 += pf11
+                pp12 += pf12
+                pp22 += pf22
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                l20 = (pp02) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                l21 = (pp12 - l20 * l10 * dg0) * iv1
+                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
+                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
+                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
+                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
+                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
+                gg20 = z2 * iv2
+                gg10 = z1 * iv1 - l21 * gg20
+                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
+                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
+                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
+                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
+                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                dp01 = Ps[k + 1, 0, 1] - pp01
+                dp02 = Ps[k + 1, 0, 2] - pp02
+                dp11 = Ps[k + 1, 1, 1] - pp11
+                dp12 = Ps[k + 1, 1, 2] - pp12
+                dp22 = Ps[k + 1, 2, 2] - pp22
+                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
+                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
+                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
+                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 2, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_decay(cnt, rate0, work)
+        work[ROW_A, :cnt] = dtr[:cnt]
+        work[ROW_A + 1, :cnt] = work[ROW_E, :cnt]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_decay(cnt, rate0, work)
+        vpf00 = vsplat(pf00)
+        vc000 = vsplat(c000)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    a00 = vmul(e1, vc000)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    w00 = vmul(a00, qq00)
+                    sp00 = vfma(w00, a00, vpf00)
+                    sm0 = vmul(a00, fm0)
+                    e00 = vmul(e2, vc000)
+                    qq00 = vsub(sp00, vpf00)
+                    w00 = vmul(e00, qq00)
+                    pp00 = vfma(w00, e00, vpf00)
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    z0 = vmul(e00, sp00)
+                    g0 = vmul(z0, iv0)
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
+                    vmean = vfma(g0, dd0, sm0)
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    y0 = vmul(dp00, g0)
+                    vvar = vfma(g0, y0, sp00)
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sp00 = pf00
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                ee = work[ROW_A + 1, b]
+                a00 = ee * (c000)
+                qq00 = src_P[k, 0, 0] - pf00
+                w00 = a00 * qq00
+                sp00 = w00 * a00
+                sp00 += pf00
+                sm0 = a00 * src_m[k, 0]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                ee = work[ROW_E, b]
+                e00 = ee * (c000)
+                qq00 = sp00 - pf00
+                w00 = e00 * qq00
+                pp00 = w00 * e00
+                pp00 += pf00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = e00 * sp00
+                gg00 = z0 * iv0
+                dd0 = ms[k + 1, 0] - (e00 * sm0)
+                mean += gg00 * dd0
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                y0 = dp00 * gg00
+                var += gg00 * y0
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 8, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_decay(cnt, rate0, work)
+        work[ROW_A, :cnt] = dtr[:cnt]
+        work[ROW_A + 1, :cnt] = work[ROW_E, :cnt]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_decay(cnt, rate0, work)
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf11 = vsplat(pf11)
+        vc000 = vsplat(c000)
+        vc001 = vsplat(c001)
+        vc010 = vsplat(c010)
+        vc011 = vsplat(c011)
+        vc100 = vsplat(c100)
+        vc101 = vsplat(c101)
+        vc110 = vsplat(c110)
+        vc111 = vsplat(c111)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        rh1 = work[ROW_A]
+        rh2 = work[ROW_DT]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    h1 = vload(rh1, b)
+                    h2 = vload(rh2, b)
+                    a00 = vmul(e1, vfma(h1, vc100, vc000))
+                    a01 = vmul(e1, vfma(h1, vc101, vc001))
+                    a10 = vmul(e1, vfma(h1, vc110, vc010))
+                    a11 = vmul(e1, vfma(h1, vc111, vc011))
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    w00 = vfma(a00, qq00, vmul(a01, qq01))
+                    w01 = vfma(a00, qq01, vmul(a01, qq11))
+                    w10 = vfma(a10, qq00, vmul(a11, qq01))
+                    w11 = vfma(a10, qq01, vmul(a11, qq11))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
+                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
+                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    e00 = vmul(e2, vfma(h2, vc100, vc000))
+                    e01 = vmul(e2, vfma(h2, vc101, vc001))
+                    e10 = vmul(e2, vfma(h2, vc110, vc010))
+                    e11 = vmul(e2, vfma(h2, vc111, vc011))
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq11 = vsub(sp11, vpf11)
+                    w00 = vfma(e00, qq00, vmul(e01, qq01))
+                    w01 = vfma(e00, qq01, vmul(e01, qq11))
+                    w10 = vfma(e10, qq00, vmul(e11, qq01))
+                    w11 = vfma(e10, qq01, vmul(e11, qq11))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    z0 = vfma(e00, sp00, vmul(e01, sp01))
+                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
+                    g1 = vmul(z1, iv1)
+                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    y0 = vfma(dp00, g0, vmul(dp01, g1))
+                    y1 = vfma(dp01, g0, vmul(dp11, g1))
+                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sm1 = 0.0
+                sp00 = pf00
+                sp01 = pf01
+                sp11 = pf11
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                ee = work[ROW_A + 1, b]
+                hh = work[ROW_A, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq11 = src_P[k, 1, 1] - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                sp00 = w00 * a00 + w01 * a01
+                sp01 = w00 * a10 + w01 * a11
+                sp11 = w10 * a10 + w11 * a11
+                sp00 += pf00
+                sp01 += pf01
+                sp11 += pf11
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                e00 = ee * (c000 + hh * c100)
+                e01 = ee * (c001 + hh * c101)
+                e10 = ee * (c010 + hh * c110)
+                e11 = ee * (c011 + hh * c111)
+                qq00 = sp00 - pf00
+                qq01 = sp01 - pf01
+                qq11 = sp11 - pf11
+                w00 = e00 * qq00 + e01 * qq01
+                w01 = e00 * qq01 + e01 * qq11
+                w10 = e10 * qq00 + e11 * qq01
+                w11 = e10 * qq01 + e11 * qq11
+                pp00 = w00 * e00 + w01 * e01
+                pp01 = w00 * e10 + w01 * e11
+                pp11 = w10 * e10 + w11 * e11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = e00 * sp00 + e01 * sp01
+                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
+                gg10 = z1 * iv1
+                gg00 = z0 * iv0 - l10 * gg10
+                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
+                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
+                mean += gg00 * dd0 + gg10 * dd1
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                dp01 = Ps[k + 1, 0, 1] - pp01
+                dp11 = Ps[k + 1, 1, 1] - pp11
+                y0 = dp00 * gg00 + dp01 * gg10
+                y1 = dp01 * gg00 + dp11 * gg10
+                var += gg00 * y0 + gg10 * y1
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c002 = coef[0, 0, 0, 2]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c012 = coef[0, 0, 1, 2]
+    c020 = coef[0, 0, 2, 0]
+    c021 = coef[0, 0, 2, 1]
+    c022 = coef[0, 0, 2, 2]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c102 = coef[0, 1, 0, 2]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    c112 = coef[0, 1, 1, 2]
+    c120 = coef[0, 1, 2, 0]
+    c121 = coef[0, 1, 2, 1]
+    c122 = coef[0, 1, 2, 2]
+    c200 = coef[0, 2, 0, 0]
+    c201 = coef[0, 2, 0, 1]
+    c202 = coef[0, 2, 0, 2]
+    c210 = coef[0, 2, 1, 0]
+    c211 = coef[0, 2, 1, 1]
+    c212 = coef[0, 2, 1, 2]
+    c220 = coef[0, 2, 2, 0]
+    c221 = coef[0, 2, 2, 1]
+    c222 = coef[0, 2, 2, 2]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 18, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_decay(cnt, rate0, work)
+        work[ROW_A, :cnt] = dtr[:cnt]
+        work[ROW_A + 1, :cnt] = work[ROW_E, :cnt]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_decay(cnt, rate0, work)
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf02 = vsplat(pf02)
+        vpf11 = vsplat(pf11)
+        vpf12 = vsplat(pf12)
+        vpf22 = vsplat(pf22)
+        vc000 = vsplat(c000)
+        vc001 = vsplat(c001)
+        vc002 = vsplat(c002)
+        vc010 = vsplat(c010)
+        vc011 = vsplat(c011)
+        vc012 = vsplat(c012)
+        vc020 = vsplat(c020)
+        vc021 = vsplat(c021)
+        vc022 = vsplat(c022)
+        vc100 = vsplat(c100)
+        vc101 = vsplat(c101)
+        vc102 = vsplat(c102)
+        vc110 = vsplat(c110)
+        vc111 = vsplat(c111)
+        vc112 = vsplat(c112)
+        vc120 = vsplat(c120)
+        vc121 = vsplat(c121)
+        vc122 = vsplat(c122)
+        vc200 = vsplat(c200)
+        vc201 = vsplat(c201)
+        vc202 = vsplat(c202)
+        vc210 = vsplat(c210)
+        vc211 = vsplat(c211)
+        vc212 = vsplat(c212)
+        vc220 = vsplat(c220)
+        vc221 = vsplat(c221)
+        vc222 = vsplat(c222)
+        re1 = work[ROW_A + 1]
+        re2 = work[ROW_E]
+        rh1 = work[ROW_A]
+        rh2 = work[ROW_DT]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    e1 = vload(re1, b)
+                    e2 = vload(re2, b)
+                    h1 = vload(rh1, b)
+                    h2 = vload(rh2, b)
+                    a00 = vmul(e1, vfma(h1, vfma(h1, vc200, vc100), vc000))
+                    a01 = vmul(e1, vfma(h1, vfma(h1, vc201, vc101), vc001))
+                    a02 = vmul(e1, vfma(h1, vfma(h1, vc202, vc102), vc002))
+                    a10 = vmul(e1, vfma(h1, vfma(h1, vc210, vc110), vc010))
+                    a11 = vmul(e1, vfma(h1, vfma(h1, vc211, vc111), vc011))
+                    a12 = vmul(e1, vfma(h1, vfma(h1, vc212, vc112), vc012))
+                    a20 = vmul(e1, vfma(h1, vfma(h1, vc220, vc120), vc020))
+                    a21 = vmul(e1, vfma(h1, vfma(h1, vc221, vc121), vc021))
+                    a22 = vmul(e1, vfma(h1, vfma(h1, vc222, vc122), vc022))
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq02 = vsub((Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2]), vpf02)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    qq12 = vsub((Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2]), vpf12)
+                    qq22 = vsub((Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2]), vpf22)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
+                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
+                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
+                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
+                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
+                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
+                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
+                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
+                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
+                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
+                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
+                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
+                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
+                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
+                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
+                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    e00 = vmul(e2, vfma(h2, vfma(h2, vc200, vc100), vc000))
+                    e01 = vmul(e2, vfma(h2, vfma(h2, vc201, vc101), vc001))
+                    e02 = vmul(e2, vfma(h2, vfma(h2, vc202, vc102), vc002))
+                    e10 = vmul(e2, vfma(h2, vfma(h2, vc210, vc110), vc010))
+                    e11 = vmul(e2, vfma(h2, vfma(h2, vc211, vc111), vc011))
+                    e12 = vmul(e2, vfma(h2, vfma(h2, vc212, vc112), vc012))
+                    e20 = vmul(e2, vfma(h2, vfma(h2, vc220, vc120), vc020))
+                    e21 = vmul(e2, vfma(h2, vfma(h2, vc221, vc121), vc021))
+                    e22 = vmul(e2, vfma(h2, vfma(h2, vc222, vc122), vc022))
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq02 = vsub(sp02, vpf02)
+                    qq11 = vsub(sp11, vpf11)
+                    qq12 = vsub(sp12, vpf12)
+                    qq22 = vsub(sp22, vpf22)
+                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
+                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
+                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
+                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
+                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
+                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
+                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
+                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
+                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
+                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
+                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
+                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    l20 = vmul(pp02, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
+                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
+                    iv2 = vrecip_pos(dg2)
+                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
+                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
+                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
+                    g2 = vmul(z2, iv2)
+                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
+                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
+                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
+                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
+                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
+                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
+                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
+                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sm1 = 0.0
+                sm2 = 0.0
+                sp00 = pf00
+                sp01 = pf01
+                sp02 = pf02
+                sp11 = pf11
+                sp12 = pf12
+                sp22 = pf22
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                ee = work[ROW_A + 1, b]
+                hh = work[ROW_A, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq02 = src_P[k, 0, 2] - pf02
+                qq11 = src_P[k, 1, 1] - pf11
+                qq12 = src_P[k, 1, 2] - pf12
+                qq22 = src_P[k, 2, 2] - pf22
+                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
+                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
+                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
+                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
+                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
+                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
+                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
+                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
+                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
+                sp00 = w00 * a00 + w01 * a01 + w02 * a02
+                sp01 = w00 * a10 + w01 * a11 + w02 * a12
+                sp02 = w00 * a20 + w01 * a21 + w02 * a22
+                sp11 = w10 * a10 + w11 * a11 + w12 * a12
+                sp12 = w10 * a20 + w11 * a21 + w12 * a22
+                sp22 = w20 * a20 + w21 * a21 + w22 * a22
+                sp00 += pf00
+                sp01 += pf01
+                sp02 += pf02
+                sp11 += pf11
+                sp12 += pf12
+                sp22 += pf22
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
+                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                e00 = ee * (c000 + hh * (c100 + hh * c200))
+                e01 = ee * (c001 + hh * (c101 + hh * c201))
+                e02 = ee * (c002 + hh * (c102 + hh * c202))
+                e10 = ee * (c010 + hh * (c110 + hh * c210))
+                e11 = ee * (c011 + hh * (c111 + hh * c211))
+                e12 = ee * (c012 + hh * (c112 + hh * c212))
+                e20 = ee * (c020 + hh * (c120 + hh * c220))
+                e21 = ee * (c021 + hh * (c121 + hh * c221))
+                e22 = ee * (c022 + hh * (c122 + hh * c222))
+                qq00 = sp00 - pf00
+                qq01 = sp01 - pf01
+                qq02 = sp02 - pf02
+                qq11 = sp11 - pf11
+                qq12 = sp12 - pf12
+                qq22 = sp22 - pf22
+                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
+                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
+                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
+                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
+                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
+                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
+                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
+                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
+                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
+                pp00 = w00 * e00 + w01 * e01 + w02 * e02
+                pp01 = w00 * e10 + w01 * e11 + w02 * e12
+                pp02 = w00 * e20 + w01 * e21 + w02 * e22
+                pp11 = w10 * e10 + w11 * e11 + w12 * e12
+                pp12 = w10 * e20 + w11 * e21 + w12 * e22
+                pp22 = w20 * e20 + w21 * e21 + w22 * e22
+                pp00 += pf00
+                pp01 += pf01
+                pp02 += pf02
+                pp11 += pf11
+                pp12 += pf12
+                pp22 += pf22
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                l20 = (pp02) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                l21 = (pp12 - l20 * l10 * dg0) * iv1
+                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
+                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
+                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
+                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
+                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
+                gg20 = z2 * iv2
+                gg10 = z1 * iv1 - l21 * gg20
+                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
+                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
+                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
+                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
+                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                dp01 = Ps[k + 1, 0, 1] - pp01
+                dp02 = Ps[k + 1, 0, 2] - pp02
+                dp11 = Ps[k + 1, 1, 1] - pp11
+                dp12 = Ps[k + 1, 1, 2] - pp12
+                dp22 = Ps[k + 1, 2, 2] - pp22
+                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
+                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
+                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
+                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 2, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_transition(cnt, trans, work, ROW_A + 1)
+        vpf00 = vsplat(pf00)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 1]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    w00 = vmul(a00, qq00)
+                    sp00 = vfma(w00, a00, vpf00)
+                    sm0 = vmul(a00, fm0)
+                    e00 = vload(rb0, b)
+                    qq00 = vsub(sp00, vpf00)
+                    w00 = vmul(e00, qq00)
+                    pp00 = vfma(w00, e00, vpf00)
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    z0 = vmul(e00, sp00)
+                    g0 = vmul(z0, iv0)
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
+                    vmean = vfma(g0, dd0, sm0)
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    y0 = vmul(dp00, g0)
+                    vvar = vfma(g0, y0, sp00)
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sp00 = pf00
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                a00 = work[ROW_A + 0, b]
+                qq00 = src_P[k, 0, 0] - pf00
+                w00 = a00 * qq00
+                sp00 = w00 * a00
+                sp00 += pf00
+                sm0 = a00 * src_m[k, 0]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                e00 = work[ROW_A + 1 + 0, b]
+                qq00 = sp00 - pf00
+                w00 = e00 * qq00
+                pp00 = w00 * e00
+                pp00 += pf00
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                z0 = e00 * sp00
+                gg00 = z0 * iv0
+                dd0 = ms[k + 1, 0] - (e00 * sm0)
+                mean += gg00 * dd0
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                y0 = dp00 * gg00
+                var += gg00 * y0
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
+    """
+    mf, Pf = filt
+    ms, Ps = smoothed
+    n = t.size
+    nq = tq.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK
+    for chunk in prange(n_chunks):
+        lo = chunk * PREDICT_CHUNK
+        cnt = min(PREDICT_CHUNK, nq - lo)
+        work = np.empty((ROW_A + 8, PREDICT_CHUNK))
+        dtr = work[ROW_DT]
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = tq[lo + b] - t[k] if k >= 0 else 0.0
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            k = idx[lo + b]
+            dtr[b] = t[k + 1] - tq[lo + b] if k < n - 1 else 0.0
+        fill_transition(cnt, trans, work, ROW_A + 4)
+        vpf00 = vsplat(pf00)
+        vpf01 = vsplat(pf01)
+        vpf11 = vsplat(pf11)
+        ra0 = work[ROW_A + 0]
+        rb0 = work[ROW_A + 4]
+        ra1 = work[ROW_A + 1]
+        rb1 = work[ROW_A + 5]
+        ra2 = work[ROW_A + 2]
+        rb2 = work[ROW_A + 6]
+        ra3 = work[ROW_A + 3]
+        rb3 = work[ROW_A + 7]
+        b = 0
+        while b < cnt:
+            i = lo + b
+            if b + 4 <= cnt:
+                k0 = idx[i]
+                k1 = idx[i + 1]
+                k2 = idx[i + 2]
+                k3 = idx[i + 3]
+                if min(k0, k1, k2, k3) >= 0 and max(k0, k1, k2, k3) < n - 1:
+                    a00 = vload(ra0, b)
+                    a01 = vload(ra1, b)
+                    a10 = vload(ra2, b)
+                    a11 = vload(ra3, b)
+                    qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
+                    qq01 = vsub((Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1]), vpf01)
+                    qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
+                    fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
+                    fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
+                    w00 = vfma(a00, qq00, vmul(a01, qq01))
+                    w01 = vfma(a00, qq01, vmul(a01, qq11))
+                    w10 = vfma(a10, qq00, vmul(a11, qq01))
+                    w11 = vfma(a10, qq01, vmul(a11, qq11))
+                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
+                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
+                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
+                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
+                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    e00 = vload(rb0, b)
+                    e01 = vload(rb1, b)
+                    e10 = vload(rb2, b)
+                    e11 = vload(rb3, b)
+                    qq00 = vsub(sp00, vpf00)
+                    qq01 = vsub(sp01, vpf01)
+                    qq11 = vsub(sp11, vpf11)
+                    w00 = vfma(e00, qq00, vmul(e01, qq01))
+                    w01 = vfma(e00, qq01, vmul(e01, qq11))
+                    w10 = vfma(e10, qq00, vmul(e11, qq01))
+                    w11 = vfma(e10, qq01, vmul(e11, qq11))
+                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
+                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
+                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
+                    dg0 = pp00
+                    iv0 = vrecip_pos(dg0)
+                    l10 = vmul(pp01, iv0)
+                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
+                    iv1 = vrecip_pos(dg1)
+                    z0 = vfma(e00, sp00, vmul(e01, sp01))
+                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
+                    g1 = vmul(z1, iv1)
+                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
+                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
+                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
+                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
+                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
+                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
+                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
+                    y0 = vfma(dp00, g0, vmul(dp01, g1))
+                    y1 = vfma(dp01, g0, vmul(dp11, g1))
+                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    vstore(out_mean, i, vmean)
+                    vstore(out_var, i, vmax0(vvar))
+                    b += 4
+                    continue
+            # one query at a time: chunk tails, and queries outside the data span
+            k = idx[i]
+            if k < 0:
+                sm0 = 0.0
+                sm1 = 0.0
+                sp00 = pf00
+                sp01 = pf01
+                sp11 = pf11
+            else:
+                # after the last time the smoothed state, else the filtered one (no views:
+                # a view per query would cost reference-count updates)
+                src_m = ms if k == n - 1 else mf
+                src_P = Ps if k == n - 1 else Pf
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
+                qq00 = src_P[k, 0, 0] - pf00
+                qq01 = src_P[k, 0, 1] - pf01
+                qq11 = src_P[k, 1, 1] - pf11
+                w00 = a00 * qq00 + a01 * qq01
+                w01 = a00 * qq01 + a01 * qq11
+                w10 = a10 * qq00 + a11 * qq01
+                w11 = a10 * qq01 + a11 * qq11
+                sp00 = w00 * a00 + w01 * a01
+                sp01 = w00 * a10 + w01 * a11
+                sp11 = w10 * a10 + w11 * a11
+                sp00 += pf00
+                sp01 += pf01
+                sp11 += pf11
+                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
+                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
+            mean = sm0
+            var = sp00
+            if k < n - 1:
+                e00 = work[ROW_A + 4 + 0, b]
+                e01 = work[ROW_A + 4 + 1, b]
+                e10 = work[ROW_A + 4 + 2, b]
+                e11 = work[ROW_A + 4 + 3, b]
+                qq00 = sp00 - pf00
+                qq01 = sp01 - pf01
+                qq11 = sp11 - pf11
+                w00 = e00 * qq00 + e01 * qq01
+                w01 = e00 * qq01 + e01 * qq11
+                w10 = e10 * qq00 + e11 * qq01
+                w11 = e10 * qq01 + e11 * qq11
+                pp00 = w00 * e00 + w01 * e01
+                pp01 = w00 * e10 + w01 * e11
+                pp11 = w10 * e10 + w11 * e11
+                pp00 += pf00
+                pp01 += pf01
+                pp11 += pf11
+                dg0 = pp00
+                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
+                l10 = (pp01) * iv0
+                dg1 = pp11 - l10 * l10 * dg0
+                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
+                z0 = e00 * sp00 + e01 * sp01
+                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
+                gg10 = z1 * iv1
+                gg00 = z0 * iv0 - l10 * gg10
+                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
+                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
+                mean += gg00 * dd0 + gg10 * dd1
+                dp00 = Ps[k + 1, 0, 0] - pp00
+                dp01 = Ps[k + 1, 0, 1] - pp01
+                dp11 = Ps[k + 1, 1, 1] - pp11
+                y0 = dp00 * gg00 + dp01 * gg10
+                y1 = dp01 * gg00 + dp11 * gg10
+                var += gg00 * y0 + gg10 * y1
+            out_mean[i] = mean
+            out_var[i] = max(var, 0.0)
+            b += 1
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+    """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
+
+    As ``kalman.predict_between`` (``idx[i]`` is the last training index with
+    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
+    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
+    the GIL released: for callers that run two of these at once in threads
+    (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
     ms, Ps = smoothed

@@ -5,8 +5,9 @@ from __future__ import annotations
 from numba import njit, prange
 
 
-@njit(cache=True)
-def _is_sorted(x):
+@njit(cache=True, nogil=True)
+def is_sorted(x):
+    """Whether ``x`` is in non-decreasing order."""
     for i in range(1, x.size):
         if x[i] < x[i - 1]:
             return False
@@ -32,34 +33,45 @@ def _search_each(t, tq, idx):
         idx[i] = _last_at_or_before(t, tq[i])
 
 
+@njit(cache=True, nogil=True)
+def _search_each_serial(t, tq, idx):
+    for i in range(tq.size):
+        idx[i] = _last_at_or_before(t, tq[i])
+
+
 _MERGE_CHUNK = 32768
 _WINDOW = 8
 
 
+@njit(cache=True, nogil=True)
+def _merge_range(t, tq, idx, lo, hi):
+    """``idx[lo:hi]`` for sorted queries ``tq[lo:hi]``."""
+    n = t.size
+    k = _last_at_or_before(t, tq[lo]) + 1  # t[:k] <= current query
+    for i in range(lo, hi):
+        x = tq[i]
+        if k + _WINDOW <= n:
+            # How many of the next few (sorted) data times are <= x, as a sum of
+            # comparisons: a branch per data point would be mispredicted about
+            # once a query on irregular times, which cost ~3x this whole loop.
+            step = 0
+            for j in range(_WINDOW):
+                step += t[k + j] <= x
+            k += step
+            if step == _WINDOW and k < n and t[k] <= x:  # a longer stretch: rare
+                k = _last_at_or_before(t, x, k) + 1
+        else:
+            while k < n and t[k] <= x:
+                k += 1
+        idx[i] = k - 1
+
+
 @njit(cache=True, parallel=True)
 def _merge_chunks(t, tq, idx):
-    n = t.size
     n_chunks = (tq.size + _MERGE_CHUNK - 1) // _MERGE_CHUNK
     for c in prange(n_chunks):
         lo = c * _MERGE_CHUNK
-        hi = min(lo + _MERGE_CHUNK, tq.size)
-        k = _last_at_or_before(t, tq[lo]) + 1  # t[:k] <= current query
-        for i in range(lo, hi):
-            x = tq[i]
-            if k + _WINDOW <= n:
-                # How many of the next few (sorted) data times are <= x, as a sum of
-                # comparisons: a branch per data point would be mispredicted about
-                # once a query on irregular times, which cost ~3x this whole loop.
-                step = 0
-                for j in range(_WINDOW):
-                    step += t[k + j] <= x
-                k += step
-                if step == _WINDOW and k < n and t[k] <= x:  # a longer stretch: rare
-                    k = _last_at_or_before(t, x, k) + 1
-            else:
-                while k < n and t[k] <= x:
-                    k += 1
-            idx[i] = k - 1
+        _merge_range(t, tq, idx, lo, min(lo + _MERGE_CHUNK, tq.size))
 
 
 @njit(cache=True)
@@ -73,9 +85,25 @@ def locate(t, tq, idx):
     stretches, so a few queries in a long series stay cheap; otherwise each
     query is a binary search, in parallel. Returns whether ``tq`` was sorted.
     """
-    if not _is_sorted(tq):
+    if not is_sorted(tq):
         _search_each(t, tq, idx)
         return False
     if tq.size:
         _merge_chunks(t, tq, idx)
+    return True
+
+
+@njit(cache=True, nogil=True)
+def locate_serial(t, tq, idx, known_sorted=False):
+    """:func:`locate` in the calling thread, with the GIL released.
+
+    For callers running two searches at once in threads: numba's default
+    thread pool does not allow two parallel regions at the same time.
+    ``known_sorted`` skips the check of the queries' order.
+    """
+    if not known_sorted and not is_sorted(tq):
+        _search_each_serial(t, tq, idx)
+        return False
+    if tq.size:
+        _merge_range(t, tq, idx, 0, tq.size)
     return True

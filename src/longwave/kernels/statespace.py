@@ -144,15 +144,25 @@ class StateSpace:
         return dt[..., None] ** np.arange(k)
 
     def _combine(self, dt, cos_coef, sin_coef):
-        powers = self._powers(dt)
-        decay = np.exp(-np.multiply.outer(dt, self.rate))
-        phase = np.multiply.outer(dt, self.freq)
-        pc = np.einsum("...k,jkab->...jab", powers, cos_coef)
-        ps = np.einsum("...k,jkab->...jab", powers, sin_coef)
-        terms = decay[..., None, None] * (
-            np.cos(phase)[..., None, None] * pc + np.sin(phase)[..., None, None] * ps
-        )
-        return terms.sum(axis=-3)
+        return closed_transition(self.rate, self.freq, cos_coef, sin_coef, dt)
+
+
+def closed_transition(rate, freq, cos_coef, sin_coef, dt) -> np.ndarray:
+    """The closed form of the module docstring at steps ``dt``: shape ``dt.shape + (d, d)``.
+
+    Takes the coefficient arrays themselves (of :class:`StateSpace`, or the
+    same in another basis), so callers holding only those can evaluate ``A``.
+    """
+    dt = np.asarray(dt, dtype=float)
+    powers = dt[..., None] ** np.arange(cos_coef.shape[1])
+    decay = np.exp(-np.multiply.outer(dt, rate))
+    phase = np.multiply.outer(dt, freq)
+    pc = np.einsum("...k,jkab->...jab", powers, cos_coef)
+    ps = np.einsum("...k,jkab->...jab", powers, sin_coef)
+    terms = decay[..., None, None] * (
+        np.cos(phase)[..., None, None] * pc + np.sin(phase)[..., None, None] * ps
+    )
+    return terms.sum(axis=-3)
 
 
 def stack_blocks(parts: list[StateSpace]) -> StateSpace:

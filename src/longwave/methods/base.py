@@ -87,11 +87,14 @@ class Posterior:
         t = np.asarray(t, dtype=np.float64)
         if t.ndim != 1:
             raise ValueError(f"t must be one-dimensional, got shape {t.shape}")
-        bad = np.flatnonzero(~np.isfinite(t))
-        if bad.size:
-            raise ValueError(f"t must be finite, found {t[bad[0]]} at index {bad[0]}")
+        # A sum is finite unless some entry is not (or it overflows): the full
+        # check, which allocates, runs only then.
+        if not np.isfinite(np.sum(t)):
+            bad = np.flatnonzero(~np.isfinite(t))
+            if bad.size:
+                raise ValueError(f"t must be finite, found {t[bad[0]]} at index {bad[0]}")
         mean, var = self._latent(t)
-        mean = mean + self.model.mean_value
+        mean += self.model.mean_value  # _latent's arrays are new: no copy
         if observed:
             e = np.zeros(t.size) if err is None else np.asarray(err, float)
             if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):

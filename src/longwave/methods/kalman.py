@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 
 from .._config import settings
@@ -20,7 +21,10 @@ from .._loops import blocked_transition as blocked
 from .._loops import kalman as loops
 from .._loops import kalman_fast as fast
 from .._loops import search
+from ..kernels.statespace import closed_transition
+from . import kalman_split as split
 from .base import Evaluation, Method, Posterior, require_noise
+from .kalman_sweep import Sweep
 
 # Steps whose transitions the specialised loops compute in one vectorised pass.
 _STEP_BLOCK = 512
@@ -224,9 +228,15 @@ class KalmanPosterior(Posterior):
     needs the filtered state before it and the smoothed state after it; the
     smoothed states of a block are rebuilt from the checkpoint at the block's
     end by the same RTS recursion, so predictions equal those of a full
-    smoother pass exactly, at O(block) extra work per block a prediction touches.
-    The checkpoints come from one backward pass over all blocks, run by the
-    first prediction, which predicts its own queries block by block on the way.
+    smoother pass exactly, at O(block) extra work per block a prediction
+    touches (``kalman_sweep.py``). The checkpoints come from one backward pass
+    over all blocks, run by the first prediction, which predicts its own
+    queries block by block on the way.
+
+    On two cores a long series is built in two halves at once: the left half
+    filtered forwards, the right half backwards in time, joined at one state
+    (``kalman_split.py``); each half is then smoothed and predicted on its own
+    core. The result is the same posterior, to rounding.
 
     Parameters
     ----------
@@ -245,9 +255,21 @@ class KalmanPosterior(Posterior):
         Not on the first prediction: a posterior predicted once (the common
         case) then touches no more memory than it needs, and fresh memory is
         slow to touch on virtual machines.
+    split : bool, optional
+        Build in two halves on two threads. Default: when ``fast`` applies,
+        the series has at least ``split_min_n`` points and numba may use two
+        threads (the survey workers allow one). True splits any series of four
+        points or more. Either way the split is skipped when the model has no
+        time-reversal map or the join is too ill-conditioned to trust;
+        :attr:`split_at` says what happened.
+
+    Attributes
+    ----------
+    split_at : int or None
+        Index of the last data point of the left half, None when built in one pass.
     """
 
-    def __init__(self, model, series, block=None, fast=False, keep=None):
+    def __init__(self, model, series, block=None, fast=False, keep=None, split=None):
         super().__init__(model, series)
         ss = model.kernel.state_space()
         self._ss = ss
@@ -257,149 +279,130 @@ class KalmanPosterior(Posterior):
             self._pinf, self._trans = ss.Pinf, _transition_arrays(ss)
         else:
             self._pinf, self._trans = form.pinf, form.trans
-            self._work = form.work(2)
         n, d = series.n, ss.dim
-        self._block = int(block or settings().chunk_size)
-        self._filt = (np.empty((n, d)), np.empty((n, d, d)))
-        if form is None:
-            resid = series.y - model.mean_value
-            noise = model.noise_variance(series.err)
-            loops.filter_store(series.t, resid, noise, ss.H, ss.Pinf, self._trans, *self._filt)
-            del resid, noise
-        else:
-            data = (series.t, series.y, series.err)
-            scal = (float(model.mean_value), float(model.excess_variance))
-            form.loop("filter_store")(data, scal, form.pinf, form.trans, self._work, *self._filt)
-        self._starts = np.arange(0, n, self._block)
-        nb = self._starts.size
-        # Smoothed state at each block start, filled by the first prediction's
-        # backward pass over all blocks (which predicts each block's queries as
-        # it goes, so the first prediction costs one smoother pass, not two).
-        self._ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
-        self._have_ckpt = False
-        self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
-        self._may_keep = (n * (d + d * d) * 8 <= settings().keep_smoothed_mb * 2**20
+        config = settings()
+        self._block = int(block or config.chunk_size)
+        self._may_keep = (n * (d + d * d) * 8 <= config.keep_smoothed_mb * 2**20
                           if keep is None else bool(keep))
-        self._kept = {}  # (lo, end) -> smoothed states, filled from the second prediction on
+        if split is None:
+            split = form is not None and n >= config.split_min_n and numba.get_num_threads() >= 2
+        elif split and form is None:
+            raise ValueError("KalmanPosterior: split=True needs fast=True and a state "
+                             f"dimension <= {_FAST_MAX_DIM}")
+        self.split_at = None
+        self._sweeps = self._build_split() if split and n >= 4 else None
+        if self._sweeps is None:
+            self._sweeps = (self._build_whole(),)
 
-    def _block_end(self, j):
-        return int(self._starts[j + 1]) if j + 1 < self._starts.size else self.series.n
+    def _data(self, lo=0, hi=None, reverse=False):
+        s = self.series
+        t, y, err = s.t[lo:hi], s.y[lo:hi], s.err[lo:hi]
+        if reverse:  # contiguous reversed copies, times negated
+            t, y, err = -t[::-1], np.ascontiguousarray(y[::-1]), np.ascontiguousarray(err[::-1])
+        return t, y, err
 
-    def _smoothed(self, lo, end):
-        """Smoothed means (end - lo, d) and covariances at data indices ``lo:end``.
+    def _loops(self, serial):
+        """The ``(smooth, predict)`` callables of a :class:`Sweep`, with their own scratch."""
+        pinf, trans, form = self._pinf, self._trans, self._form
+        if form is None:
+            H = self._ss.H
 
-        ``end`` is a block start (whose checkpoint is known) or ``n``.
-        """
-        kept = self._kept.get((lo, end))
-        if kept is not None:
-            return kept
-        cached = self._cache
-        if cached is not None and cached[0] == lo and cached[1] == end:
-            ms, Ps = cached[2], cached[3]
-        elif self._form is not None:
-            ms, Ps = self._smoothed_fast(lo, end)
-        else:
-            ms, Ps = self._smoothed_general(lo, end)
-        self._cache = (lo, end, ms, Ps)
-        if self._may_keep and self._have_ckpt:  # a later prediction: worth keeping
-            self._kept[(lo, end)] = (ms, Ps)
-        return ms, Ps
+            def smooth(t, mf, Pf, ms, Ps):  # the general smoother starts from mf[-1]
+                m_in, P_in = mf.copy(), Pf.copy()
+                m_in[-1], P_in[-1] = ms[-1], Ps[-1]
+                loops.smooth(t, pinf, trans, m_in, P_in, ms, Ps)
 
-    def _smoothed_general(self, lo, end):
-        mf, Pf = self._filt
-        n = self.series.n
-        if end >= n:
-            m_in, P_in, t_in = mf[lo:n], Pf[lo:n], self.series.t[lo:n]
-        else:
-            # The smoother starts from its last element: put the checkpoint there.
-            j = end // self._block
-            m_in, P_in = mf[lo:end + 1].copy(), Pf[lo:end + 1].copy()
-            m_in[-1], P_in[-1] = self._ckpt[0][j], self._ckpt[1][j]
-            t_in = self.series.t[lo:end + 1]
-        ms, Ps = np.empty_like(m_in), np.empty_like(P_in)
-        loops.smooth(t_in, self._pinf, self._trans, m_in, P_in, ms, Ps)
-        return ms[:end - lo], Ps[:end - lo]
+            def predict(tq, iq, t, filt, smoothed, m_out, v_out):
+                loops.predict_between(tq, iq, t, H, pinf, trans, filt, smoothed, m_out, v_out)
 
-    def _smoothed_fast(self, lo, end):
-        # The specialised smoother starts from what its output holds at the last
-        # index: the checkpoint (or the last filtered state), no window copies.
-        mf, Pf = self._filt
-        hi = min(end + 1, self.series.n)
-        ms = np.empty((hi - lo,) + mf.shape[1:])
-        Ps = np.empty((hi - lo,) + Pf.shape[1:])
-        if end >= self.series.n:
-            ms[-1], Ps[-1] = mf[hi - 1], Pf[hi - 1]
-        else:
-            j = end // self._block
-            ms[-1], Ps[-1] = self._ckpt[0][j], self._ckpt[1][j]
-        self._form.loop("smooth")(
-            self.series.t[lo:hi], self._pinf, self._trans, self._work, mf[lo:hi], Pf[lo:hi], ms, Ps
+            return smooth, predict
+        work = form.work(2)
+        smooth_loop = form.loop("smooth")
+        predict_loop = form.loop("predict_serial" if serial else "predict")
+
+        def smooth(t, mf, Pf, ms, Ps):
+            smooth_loop(t, pinf, trans, work, mf, Pf, ms, Ps)
+
+        def predict(tq, iq, t, filt, smoothed, m_out, v_out):
+            predict_loop(tq, iq, t, pinf, trans, filt, smoothed, m_out, v_out)
+
+        return smooth, predict
+
+    def _filter(self, data, mf, Pf):
+        """Filtered states of ``data = (t, y, err)`` into ``mf``, ``Pf``."""
+        model, form = self.model, self._form
+        if form is None:
+            t, y, err = data
+            loops.filter_store(t, y - model.mean_value, model.noise_variance(err),
+                               self._ss.H, self._pinf, self._trans, mf, Pf)
+            return
+        scal = (float(model.mean_value), float(model.excess_variance))
+        form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2), mf, Pf)
+
+    def _build_whole(self):
+        n, d = self.series.n, self._ss.dim
+        filt = (np.empty((n, d)), np.empty((n, d, d)))
+        self._filter(self._data(), *filt)
+        return Sweep(self.series.t, filt, None, *self._loops(serial=False),
+                     self._block, self._may_keep)
+
+    def _build_split(self):
+        """The two halves (left sweep, reversed right sweep), or None (see ``split``)."""
+        pinf, trans = self._pinf, self._trans
+        s_map = split.reversal(pinf, trans)
+        j = split.split_index(self.series.t)
+        if s_map is None or j is None:
+            return None
+        n, d = self.series.n, self._ss.dim
+        left = (np.empty((j + 1, d)), np.empty((j + 1, d, d)))
+        # Right half reversed: points n-1 .. j+1 filtered, then point j, whose
+        # slot holds the joined state (the smoother starts there; never filtered).
+        t_right, y_right, err_right = self._data(j, reverse=True)
+        right = (np.empty((n - j, d)), np.empty((n - j, d, d)))
+        split.in_two_threads(
+            lambda: self._filter(self._data(0, j + 1), *left),
+            lambda: self._filter((t_right[:-1], y_right[:-1], err_right[:-1]),
+                                 right[0][:-1], right[1][:-1]),
         )
-        return ms[:end - lo], Ps[:end - lo]
+        # The right side's estimate of the state at t[j]: one prediction step
+        # backwards from t[j + 1], mapped from the reversed basis by S.
+        a = closed_transition(*trans, np.asarray(self.series.t[j + 1] - self.series.t[j]))
+        m_back = a @ right[0][n - j - 2]
+        P_back = a @ (right[1][n - j - 2] - pinf) @ a.T + pinf
+        joined = split.join((left[0][j], left[1][j]),
+                            (s_map @ m_back, s_map @ P_back @ s_map.T), pinf)
+        if joined is None:
+            return None
+        s_inv = np.linalg.inv(s_map)
+        right[0][-1] = s_inv @ joined[0]
+        right[1][-1] = s_inv @ joined[1] @ s_inv.T
+        self.split_at = int(j)
+        return (
+            Sweep(self.series.t[:j + 1], left, joined, *self._loops(serial=True),
+                  self._block, self._may_keep, serial=True),
+            Sweep(t_right, right, (right[0][-1], right[1][-1]), *self._loops(serial=True),
+                  self._block, self._may_keep, serial=True),
+        )
 
     def _latent(self, t):
-        t_data = self.series.t
-        n = t_data.size
-        idx = np.empty(t.size, dtype=np.int64)
-        in_order = search.locate(t_data, t, idx)  # np.searchsorted(t_data, t, "right") - 1
-        mean = np.empty(t.size)
-        var = np.empty(t.size)
-        # The queries of each block (that of the smoothed state they need, the next
-        # data point's): slices of a sorted grid, else groups of indices.
-        jobs = {}
-        if in_order:
-            cuts = np.searchsorted(idx, self._starts[1:] - 1, side="left")
-            for j, (a, b) in enumerate(zip(np.concatenate([[0], cuts]),
-                                           np.concatenate([cuts, [t.size]]))):
-                if b > a:
-                    jobs[j] = slice(int(a), int(b))
-        else:
-            blk = np.minimum(idx + 1, n - 1) // self._block
-            order = np.argsort(blk, kind="stable")
-            for group in np.split(order, np.flatnonzero(np.diff(blk[order])) + 1):
-                if group.size:
-                    jobs[int(blk[group[0]])] = group
+        if len(self._sweeps) == 1:
+            return self._sweeps[0].latent(t)
+        left, right = self._sweeps
+        t_join = self.series.t[self.split_at]
+        mean, var = np.empty(t.size), np.empty(t.size)
+        if search.is_sorted(t):  # the usual grid: two slices, the right one reversed
+            c = int(np.searchsorted(t, t_join, side="right"))
 
-        def run(j, sel):
-            if isinstance(sel, slice):
-                self._predict_block(j, t[sel], idx[sel], mean[sel], var[sel])
-                return
-            m_out, v_out = np.empty(sel.size), np.empty(sel.size)
-            self._predict_block(j, t[sel], idx[sel], m_out, v_out)
-            mean[sel], var[sel] = m_out, v_out
+            def on_right():
+                m_r, v_r = right.latent(-t[c:][::-1], known_sorted=True)
+                mean[c:], var[c:] = m_r[::-1], v_r[::-1]
 
-        if not self._have_ckpt:
-            for j in range(self._starts.size - 1, -1, -1):
-                # backward: each block from the next one's checkpoint
-                start = int(self._starts[j])
-                lo = max(start - 1, 0)
-                ms, Ps = self._smoothed(lo, self._block_end(j))
-                self._ckpt[0][j] = ms[start - lo]
-                self._ckpt[1][j] = Ps[start - lo]
-                if j in jobs:
-                    run(j, jobs[j])
-            self._have_ckpt = True
-        else:
-            for j, sel in jobs.items():
-                run(j, sel)
+            split.in_two_threads(
+                lambda: left.latent(t[:c], out=(mean[:c], var[:c]), known_sorted=True), on_right)
+            return mean, var
+        on_left = t <= t_join
+        (m_l, v_l), (m_r, v_r) = split.in_two_threads(
+            lambda: left.latent(t[on_left]), lambda: right.latent(-t[~on_left]))
+        mean[on_left], var[on_left] = m_l, v_l
+        mean[~on_left], var[~on_left] = m_r, v_r
         return mean, var
-
-    def _predict_block(self, j, tq, idx, m_out, v_out):
-        """Queries whose next data point lies in block ``j``; writes ``m_out``, ``v_out``."""
-        t_data = self.series.t
-        mf, Pf = self._filt
-        end = self._block_end(j)
-        # Window lo:end holds the filtered state before every query of the block.
-        lo = max(int(self._starts[j]) - 1, 0)
-        smoothed = self._smoothed(lo, end)
-        iq = idx - lo
-        filt = (mf[lo:end], Pf[lo:end])
-        if self._form is None:
-            loops.predict_between(
-                tq, iq, t_data[lo:end], self._ss.H, self._pinf, self._trans,
-                filt, smoothed, m_out, v_out,
-            )
-        else:
-            self._form.loop("predict")(
-                tq, iq, t_data[lo:end], self._pinf, self._trans, filt, smoothed, m_out, v_out
-            )
