@@ -11,7 +11,9 @@ excess noise), times per point of: the log marginal likelihood, likelihood
 plus gradient, and the posterior at n query times (a new posterior and its
 n predictions; n more predictions from it, which keeps its smoothed states
 from its second prediction on; and, as ``resmooth``, n more predictions
-from a posterior made with ``keep=False``, which re-smooths every time). Measured in the same run,
+from a posterior made with ``keep=False``, which re-smooths every time; and, as ``onepass``,
+a new posterior and its n predictions built in one sequential pass, where the default
+builds one of 1e5 points or more in two halves on two threads). Measured in the same run,
 round-robin, best of ``--repeat`` (the machine is shared, so only the best
 of several runs and ratios taken within one run mean much):
 
@@ -138,8 +140,11 @@ def time_kalman(name, series, repeat, with_general=False):
         "likelihood": lambda: log_marginal_likelihood(model, series, method=Kalman()),
         "gradient": lambda: log_marginal_likelihood(model, series, method=Kalman(),
                                                     gradient=True),
-        # a new posterior and n predictions (its first prediction runs the backward pass)
+        # a new posterior and n predictions (its first prediction runs the backward pass);
+        # from n = 1e5 on it is built in two halves on two threads (methods/kalman_split.py)
         "posterior": lambda: posterior(model, series, method=Kalman()).predict(tq),
+        # the same in one sequential pass, for the ratio of the two
+        "onepass": lambda: KalmanPosterior(model, series, fast=True, split=False).predict(tq),
         # n more predictions from a posterior that has its checkpoints (from the
         # second one on, it keeps its smoothed states: best of runs is that case)
         "predict": lambda: holder["post"].predict(tq),
@@ -153,8 +158,11 @@ def time_kalman(name, series, repeat, with_general=False):
     if with_general:
         funcs["general"] = lambda: general_likelihood(model, series)
     out = best_of(funcs, repeat)
+    halves = holder["post"].split_at is not None
     holder.clear()
-    return {k: v / series.n * 1e9 for k, v in out.items()}
+    result = {k: v / series.n * 1e9 for k, v in out.items()}
+    result["halves"] = halves  # whether the default posterior was built in two halves
+    return result
 
 
 def time_exact(name, series, repeat):
@@ -362,6 +370,13 @@ def print_targets(results, sizes):
                     for n in big]
             print(f"  {label}: {name}, worst n>=1e5: {max(walls):.2f}x [{max(cpus):.2f}x]: "
                   f"{_verdict(max(walls), limit)} [{_verdict(max(cpus), limit)}]")
+    for name in KERNELS:
+        for n in big:
+            r = k[name][str(n)]
+            how = "two halves" if r.get("halves") else "one pass (not split)"
+            print(f"  {name} n={n}: new posterior + n predictions, {how} / one pass: "
+                  f"{r['posterior'] / r['onepass']:.2f}x wall "
+                  f"[{r['posterior_cpu'] / r['onepass_cpu']:.2f}x CPU]")
     if "10000000" in k["matern32"]:
         for name in KERNELS:
             for field in COLUMNS[:3]:
