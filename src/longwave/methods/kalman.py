@@ -22,7 +22,7 @@ from .._loops import kalman as loops
 from .._loops import kalman_fast as fast
 from .._loops import search
 from ..kernels.statespace import closed_transition
-from . import kalman_split as split
+from . import kalman_split
 from .base import Evaluation, Method, Posterior, require_noise
 from .kalman_sweep import Sweep
 
@@ -349,8 +349,8 @@ class KalmanPosterior(Posterior):
     def _build_split(self):
         """The two halves (left sweep, reversed right sweep), or None (see ``split``)."""
         pinf, trans = self._pinf, self._trans
-        s_map = split.reversal(pinf, trans)
-        j = split.split_index(self.series.t)
+        s_map = kalman_split.reversal(pinf, trans)
+        j = kalman_split.split_index(self.series.t)
         if s_map is None or j is None:
             return None
         n, d = self.series.n, self._ss.dim
@@ -359,7 +359,7 @@ class KalmanPosterior(Posterior):
         # slot holds the joined state (the smoother starts there; never filtered).
         t_right, y_right, err_right = self._data(j, reverse=True)
         right = (np.empty((n - j, d)), np.empty((n - j, d, d)))
-        split.in_two_threads(
+        kalman_split.in_two_threads(
             lambda: self._filter(self._data(0, j + 1), *left),
             lambda: self._filter((t_right[:-1], y_right[:-1], err_right[:-1]),
                                  right[0][:-1], right[1][:-1]),
@@ -369,7 +369,7 @@ class KalmanPosterior(Posterior):
         a = closed_transition(*trans, np.asarray(self.series.t[j + 1] - self.series.t[j]))
         m_back = a @ right[0][n - j - 2]
         P_back = a @ (right[1][n - j - 2] - pinf) @ a.T + pinf
-        joined = split.join((left[0][j], left[1][j]),
+        joined = kalman_split.join((left[0][j], left[1][j]),
                             (s_map @ m_back, s_map @ P_back @ s_map.T), pinf)
         if joined is None:
             return None
@@ -397,11 +397,11 @@ class KalmanPosterior(Posterior):
                 m_r, v_r = right.latent(-t[c:][::-1], known_sorted=True)
                 mean[c:], var[c:] = m_r[::-1], v_r[::-1]
 
-            split.in_two_threads(
+            kalman_split.in_two_threads(
                 lambda: left.latent(t[:c], out=(mean[:c], var[:c]), known_sorted=True), on_right)
             return mean, var
         on_left = t <= t_join
-        (m_l, v_l), (m_r, v_r) = split.in_two_threads(
+        (m_l, v_l), (m_r, v_r) = kalman_split.in_two_threads(
             lambda: left.latent(t[on_left]), lambda: right.latent(-t[~on_left]))
         mean[on_left], var[on_left] = m_l, v_l
         mean[~on_left], var[~on_left] = m_r, v_r
