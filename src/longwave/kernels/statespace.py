@@ -140,8 +140,7 @@ class StateSpace:
         return out
 
     def _powers(self, dt):
-        k = self.cos_coef.shape[1]
-        return dt[..., None] ** np.arange(k)
+        return _powers(dt, self.cos_coef.shape[1])
 
     def _combine(self, dt, cos_coef, sin_coef):
         return closed_transition(self.rate, self.freq, cos_coef, sin_coef, dt)
@@ -154,7 +153,7 @@ def closed_transition(rate, freq, cos_coef, sin_coef, dt) -> np.ndarray:
     same in another basis), so callers holding only those can evaluate ``A``.
     """
     dt = np.asarray(dt, dtype=float)
-    powers = dt[..., None] ** np.arange(cos_coef.shape[1])
+    powers = _powers(dt, cos_coef.shape[1])
     decay = np.exp(-np.multiply.outer(dt, rate))
     phase = np.multiply.outer(dt, freq)
     pc = np.einsum("...k,jkab->...jab", powers, cos_coef)
@@ -163,6 +162,11 @@ def closed_transition(rate, freq, cos_coef, sin_coef, dt) -> np.ndarray:
         np.cos(phase)[..., None, None] * pc + np.sin(phase)[..., None, None] * ps
     )
     return terms.sum(axis=-3)
+
+
+def _powers(dt, k):
+    """``dt^0 .. dt^(k-1)`` along a new last axis."""
+    return dt[..., None] ** np.arange(k)
 
 
 def stack_blocks(parts: list[StateSpace]) -> StateSpace:

@@ -107,6 +107,11 @@ class Posterior:
         return Prediction(t=t, mean=mean, var=var)
 
     def _latent(self, t):
+        """Latent mean (without the model mean) and variance at ``t``.
+
+        Must return new arrays that nothing else holds: :meth:`predict` adds
+        the model mean to the first in place.
+        """
         raise NotImplementedError
 
 

@@ -236,7 +236,8 @@ class KalmanPosterior(Posterior):
     On two cores a long series is built in two halves at once: the left half
     filtered forwards, the right half backwards in time, joined at one state
     (``kalman_split.py``); each half is then smoothed and predicted on its own
-    core. The result is the same posterior, to rounding.
+    core. The result is the same posterior, to rounding; the right half also
+    keeps its times reversed and negated (n/2 more doubles).
 
     Parameters
     ----------
