@@ -1,8 +1,8 @@
-"""A Kalman posterior that keeps its smoothed states, against one that re-smooths.
+"""A Kalman posterior's memory choices: kept or re-smoothed blocks, stored or recomputed states.
 
 Sources: the dense posterior (Rasmussen & Williams 2006, eqs. 2.22-2.24,
 computed by ``Exact``) for the values, and the checkpointed posterior (the
-same recursion, re-smoothing each block) for the equality of the two paths.
+same recursions, re-run per block) for the equality of the paths.
 """
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from longwave import Model, Series
-from longwave.kernels import Matern12, Matern52
+from longwave.kernels import Matern12, Matern32, Matern52
 from longwave.methods import Exact
 from longwave.methods.kalman import KalmanPosterior
 
@@ -53,6 +53,28 @@ def test_kept_states_give_the_predictions_of_re_smoothing(case, fast):
 def test_the_memory_budget_decides_by_default(case, monkeypatch):
     model, series, _ = case
     assert KalmanPosterior(model, series)._may_keep  # 900 points: well inside 512 MB
-    monkeypatch.setenv("LONGWAVE_KEEP_SMOOTHED_MB", "1")
+    monkeypatch.setenv("LONGWAVE_KALMAN_STATES_MB", "1")
     big = Series(np.arange(60_000.0), np.zeros(60_000), 0.1)  # 60000 * 20 doubles = 9.2 MB
     assert not KalmanPosterior(model, big)._may_keep
+    d3 = Model(Matern52(amplitude=1.0, scale=8.0), excess_noise=0.05)
+    assert KalmanPosterior(d3, big, fast=True)._lean  # 60000 * 12 doubles do not fit 1 MB
+    assert not KalmanPosterior(d3, series, fast=True)._lean
+
+
+@pytest.mark.parametrize("split", [False, True])
+def test_recomputed_filtered_states_give_the_stored_ones_predictions(case, split):
+    # lean: the filtered states of a block are re-run from its checkpoint
+    _, series, queries = case
+    model = Model(Matern32(amplitude=1.0, scale=8.0) + Matern12(amplitude=0.3, scale=2.0),
+                  mean=0.1, excess_noise=0.05)  # d = 3: the specialised loops
+    stored = KalmanPosterior(model, series, block=128, fast=True, split=split, lean=False)
+    lean = KalmanPosterior(model, series, block=128, fast=True, split=split, lean=True)
+    assert stored.split_at == lean.split_at and (stored.split_at is not None) == split
+    ref = Exact().posterior(model, series).predict(queries)
+    for _ in range(2):  # the second prediction keeps the recomputed states
+        a, b = stored.predict(queries), lean.predict(queries)
+        np.testing.assert_allclose(b.mean, a.mean, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(b.var, a.var, rtol=1e-11, atol=1e-13)
+        np.testing.assert_allclose(b.mean, ref.mean, rtol=1e-8, atol=1e-9)
+        np.testing.assert_allclose(b.var, ref.var, rtol=1e-8, atol=1e-10)
+    assert all(len(sweep.kept) == sweep.starts.size for sweep in lean._sweeps)

@@ -20,6 +20,7 @@ from longwave import Model, log_marginal_likelihood, posterior
 from longwave._loops import _generate_fast, blocked_transition
 from longwave._loops import kalman as loops
 from longwave.kernels import Matern12, Matern32, Matern52, Oscillator
+from longwave.kernels.statespace import closed_transition
 from longwave.methods import Exact, Kalman
 from longwave.methods.kalman import fast_form
 
@@ -176,8 +177,30 @@ def test_extreme_innovation_variances_keep_the_log_determinant(rng):
     assert got == pytest.approx(ref, rel=RTOL)
 
 
+def _filter_every_state(form, series, scal, work):
+    """``(mf, Pf, obs)`` of every point (``filter_store`` with stride 1: point i in row i + 1)."""
+    n, d = series.n, form.dim
+    obs, mf, Pf = np.empty((n, d + 2)), np.empty((n + 2, d)), np.empty((n + 2, d, d))
+    form.loop("filter_store")((series.t, series.y, series.err), scal, form.pinf, form.trans,
+                              work, obs, mf, Pf, 1)
+    np.testing.assert_array_equal(mf[0], mf[1])  # point 0 in row 0 as well
+    np.testing.assert_array_equal(Pf[-1], Pf[-2])  # and the last point in the last row
+    return mf[1:-1], Pf[1:-1], obs
+
+
+def _adjoint_pass(form, t, obs, work):
+    n, d = obs.shape[0], form.dim
+    lam, Lam = np.zeros((n, d)), np.zeros((n, d, d))
+    lam[-1, 0], Lam[-1, 0, 0] = obs[-1, 0], obs[-1, 1]  # v / s and 1 / s of the last point
+    form.loop("adjoint")(t, form.pinf, form.trans, work, obs, lam, Lam)
+    return lam, Lam
+
+
 @pytest.mark.parametrize("block", [1, 7, 512])
 def test_filter_smoother_and_prediction_match_general_loops(fast_case, rng, block):
+    # The adjoint smoother (modified Bryson-Frazier; Bierman 1977) against the
+    # general loops' RTS smoother: with A_k from t_k to t_(k+1), the smoothed
+    # state is ms_k = mf_k + Pf_k A_k^T u_(k+1), Ps_k = Pf_k - Pf_k A_k^T U_(k+1) A_k Pf_k.
     series, form, _, scal, H = _inputs(fast_case, rng)
     n, d = series.n, form.dim
     t = series.t
@@ -188,49 +211,73 @@ def test_filter_smoother_and_prediction_match_general_loops(fast_case, rng, bloc
     loops.filter_store(t, resid, noise, H, form.pinf, form.trans, *ref_f)
     loops.smooth(t, form.pinf, form.trans, *ref_f, *ref_s)
     work = np.empty((blocked_transition.n_rows(d, 2), block))
-    filt = (np.empty((n, d)), np.empty((n, d, d)))
-    form.loop("filter_store")((t, series.y, series.err), scal, form.pinf, form.trans, work, *filt)
-    sm = (np.empty((n, d)), np.empty((n, d, d)))
-    sm[0][-1], sm[1][-1] = filt[0][-1], filt[1][-1]
-    form.loop("smooth")(t, form.pinf, form.trans, work, *filt, *sm)
+    filt = _filter_every_state(form, series, scal, work)
+    lam, Lam = _adjoint_pass(form, t, filt[2], work)
     amp = np.sqrt(form.pinf[0, 0])
     scale = np.abs(form.pinf).max()
     close(filt[0], ref_f[0], amp)
     close(filt[1], ref_f[1], scale)
-    close(sm[0], ref_s[0], amp)
-    close(sm[1], ref_s[1], scale)
-    for P in (filt[1], sm[1]):
-        np.testing.assert_array_equal(P, np.swapaxes(P, 1, 2))
+    np.testing.assert_array_equal(filt[1], np.swapaxes(filt[1], 1, 2))
+    np.testing.assert_array_equal(Lam, np.swapaxes(Lam, 1, 2))
+    A = closed_transition(*form.trans, np.diff(t))
+    pa = np.einsum("kab,kcb->kac", filt[1][:-1], A)  # Pf_k A_k^T
+    ms = filt[0].copy()
+    ms[:-1] += np.einsum("kab,kb->ka", pa, lam[1:])
+    Ps = filt[1].copy()
+    Ps[:-1] -= np.einsum("kab,kbc,kdc->kad", pa, Lam[1:], pa)
+    close(ms, ref_s[0], amp)
+    close(Ps, ref_s[1], scale)
     tq = np.concatenate([t[:30], t[-3:], rng.uniform(t[0] - 50, t[-1] + 50, 700),
                          [t[0] - 1e6, t[-1] + 1e6]])
     rng.shuffle(tq)
     idx = np.searchsorted(t, tq, side="right") - 1
     ref_m, ref_v = np.empty(tq.size), np.empty(tq.size)
     loops.predict_between(tq, idx, t, H, form.pinf, form.trans, ref_f, ref_s, ref_m, ref_v)
-    got_m, got_v = np.empty(tq.size), np.empty(tq.size)
-    form.loop("predict")(tq, idx, t, form.pinf, form.trans, filt, sm, got_m, got_v)
-    close(got_m, ref_m, amp)
-    close(got_v, ref_v, scale)
+    for name in ("predict", "predict_serial"):
+        got_m, got_v = np.empty(tq.size), np.empty(tq.size)
+        form.loop(name)(tq, idx, t, form.pinf, form.trans, filt[:2], (lam, Lam), got_m, got_v)
+        close(got_m, ref_m, amp)
+        close(got_v, ref_v, scale)
 
 
-def test_smoother_starts_from_the_state_stored_at_the_end(rng):
-    # a block of the lean posterior starts from a checkpoint, not from the filter
+def test_adjoint_smoother_starts_from_the_adjoint_stored_at_the_end(rng):
+    # a block of a posterior starts from a checkpoint: two windows give one pass
     series, form, _, scal, H = _inputs("matern52", rng)
     n, d = series.n, form.dim
     t = series.t
-    filt = (np.empty((n, d)), np.empty((n, d, d)))
-    form.loop("filter_store")((t, series.y, series.err), scal, form.pinf, form.trans,
-                              form.work(), *filt)
-    ckpt_m, ckpt_P = 0.5 * filt[0][-1] + 0.1, 0.8 * filt[1][-1]
-    mf, Pf = filt[0].copy(), filt[1].copy()
-    mf[-1], Pf[-1] = ckpt_m, ckpt_P
-    ref = (np.empty((n, d)), np.empty((n, d, d)))
-    loops.smooth(t, form.pinf, form.trans, mf, Pf, *ref)
-    sm = (np.empty((n, d)), np.empty((n, d, d)))
-    sm[0][-1], sm[1][-1] = ckpt_m, ckpt_P
-    form.loop("smooth")(t, form.pinf, form.trans, form.work(), *filt, *sm)
-    close(sm[0], ref[0], 1.0)
-    close(sm[1], ref[1], np.abs(form.pinf).max())
+    filt = _filter_every_state(form, series, scal, form.work())
+    whole = _adjoint_pass(form, t, filt[2], form.work())
+    c = n // 3
+    lam, Lam = np.zeros((n, d)), np.zeros((n, d, d))
+    lam[-1, 0], Lam[-1, 0, 0] = filt[2][-1, 0], filt[2][-1, 1]
+    form.loop("adjoint")(t[c:], form.pinf, form.trans, form.work(), filt[2][c:], lam[c:], Lam[c:])
+    form.loop("adjoint")(t[:c + 1], form.pinf, form.trans, form.work(), filt[2][:c + 1],
+                         lam[:c + 1], Lam[:c + 1])
+    np.testing.assert_array_equal(lam, whole[0])
+    np.testing.assert_array_equal(Lam, whole[1])
+
+
+@pytest.mark.parametrize("stride", [2, 7, 64])
+def test_refilter_from_checkpoints_gives_every_state(fast_case, rng, stride):
+    # the lean posterior stores a state every `stride` points and re-runs the filter
+    series, form, _, scal, H = _inputs(fast_case, rng)
+    n, d = series.n, form.dim
+    work = form.work(2)
+    mf, Pf, obs = _filter_every_state(form, series, scal, work)
+    obs_s = np.empty((n, d + 2))
+    ck = (np.empty((n // stride + 2, d)), np.empty((n // stride + 2, d, d)))
+    data = (series.t, series.y, series.err)
+    form.loop("filter_store")(data, scal, form.pinf, form.trans, work, obs_s, *ck, stride)
+    np.testing.assert_array_equal(obs_s, obs)
+    for c in range(n // stride + 1):
+        lo = 0 if c == 0 else c * stride - 1
+        end = min(lo + stride + 1, n)
+        got = (np.empty((end - lo, d)), np.empty((end - lo, d, d)))
+        got[0][0], got[1][0] = ck[0][c], ck[1][c]
+        form.loop("refilter")(tuple(a[lo:end] for a in data), scal, form.pinf, form.trans,
+                              form.work(1), *got)
+        close(got[0], mf[lo:end], np.sqrt(form.pinf[0, 0]))
+        close(got[1], Pf[lo:end], np.abs(form.pinf).max())
 
 
 def test_basis_change_keeps_likelihood_gradient_and_posterior(fast_case, rng):

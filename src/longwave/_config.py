@@ -66,11 +66,13 @@ class Settings:
         (``LONGWAVE_SPARSE_BLOCK_MB``, default 16): the chunk is this divided
         by ``8 m``, capped at ``chunk_size``. A few such blocks are alive at
         once, so memory stays O(m * chunk) whatever n is.
-    keep_smoothed_mb : int
-        Largest size in MB of the smoothed states a Kalman posterior keeps
-        once it is asked for a second prediction (``LONGWAVE_KEEP_SMOOTHED_MB``,
-        default 512: n = 5e6 at state dimension 3). Larger posteriors keep
-        one checkpoint per chunk and re-smooth the chunks each prediction touches.
+    kalman_states_mb : int
+        Memory in MB a Kalman posterior may spend on states at every point
+        (``LONGWAVE_KALMAN_STATES_MB``, default 512: n(d + d^2) doubles fit for
+        n = 5.6e6 at state dimension d = 3). The filtered states are stored
+        when they fit, else one checkpoint per chunk and each chunk's states
+        recomputed when a prediction needs them; from a second prediction on,
+        every chunk's states are kept when twice that fits.
     split_min_n : int
         Shortest series whose Kalman posterior is built in two halves on two
         cores when numba may use two threads (``LONGWAVE_SPLIT_MIN_N``,
@@ -81,7 +83,7 @@ class Settings:
     exact_max_n: int
     chunk_size: int
     sparse_block_mb: int = 16
-    keep_smoothed_mb: int = 512
+    kalman_states_mb: int = 512
     split_min_n: int = 100_000
 
     def sparse_chunk(self, m: int) -> int:
@@ -95,7 +97,7 @@ def settings() -> Settings:
         exact_max_n=_env_int("LONGWAVE_EXACT_MAX_N", 10_000),
         chunk_size=_env_int("LONGWAVE_CHUNK", 65_536),
         sparse_block_mb=_env_int("LONGWAVE_SPARSE_BLOCK_MB", 16),
-        keep_smoothed_mb=_env_int("LONGWAVE_KEEP_SMOOTHED_MB", 512),
+        kalman_states_mb=_env_int("LONGWAVE_KALMAN_STATES_MB", 512),
         split_min_n=_env_int("LONGWAVE_SPLIT_MIN_N", 100_000),
     )
 

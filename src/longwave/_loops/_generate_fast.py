@@ -68,7 +68,7 @@ from .blocked_transition import (
     fill_transition_grad,
     step_sizes,
 )
-from .lanes import vadd, vfma, vload, vmax0, vmul, vrecip_pos, vsplat, vstore, vsub
+from .lanes import vadd, vfma, vload, vmax0, vmul, vsplat, vstore, vsub
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -263,12 +263,12 @@ def init_state(code, d):
     code(*[f"{sym('M', a, b)} = 0.0" for a, b in upper(d)])
 
 
-def block_loop_head(code, tr, with_grad=False):
+def block_loop_head(code, tr, with_grad=False, first=0):
     d = tr.d
     code(
         "block = work.shape[1]",
         "dtr = work[ROW_DT]",
-        "for start in range(0, n, block):",
+        f"for start in range({first}, n, block):",
     )
     code.indent()
     code("cnt = min(block, n - start)", "step_sizes(t, start, cnt, dtr)")
@@ -312,12 +312,53 @@ def gen_loglik(code, tr):
     code.dedent()
 
 
+def store_filtered(code, d, row):
+    """Write the filtered state (``m``, ``M + Pinf``) to row ``row`` of ``mf``, ``Pf``."""
+    for a in range(d):
+        code(f"mf[{row}, {a}] = m{a}")
+    for a, b in upper(d):
+        code(f"Pf[{row}, {a}, {b}] = {sym('M', a, b)} + {sym('pf', a, b)}")
+        if a != b:
+            code(f"Pf[{row}, {b}, {a}] = Pf[{row}, {a}, {b}]")
+
+
+def filter_body(code, tr, store_obs):
+    """One filter step at point i (after ``block_loop_head``); optionally stores ``obs[i]``."""
+    d = tr.d
+    code("if dtr[b] > 0.0:")
+    code.indent()
+    tr.load(code, "a", "b")
+    predict_state(code, d)
+    code.dedent()
+    observe_head(code, d)
+    if store_obs:
+        code("obs[i, 0] = g", "obs[i, 1] = inv")
+        for a in range(d):
+            code(f"obs[i, {2 + a}] = h{a} * inv")
+    observe_update(code, d)
+
+
 def gen_filter_store(code, tr):
+    """The filter for a posterior: what the adjoint smoother reads, and checkpoints.
+
+    A posterior keeps, per point, only the observation terms ``obs`` (``d + 2``
+    numbers); the filtered states are stored every ``stride`` points and
+    recomputed per block from there (:func:`gen_refilter`).
+    """
     d = tr.d
     code(
         "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, mf, Pf):",
-        f'    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = {d}."""',
+        f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf, stride):",
+        f'    """Observation terms of every point and filtered states every ``stride``, d = {d}.',
+        "",
+        "    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each",
+        "    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the",
+        "    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.",
+        "    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at",
+        "    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point",
+        "    of every window that ``refilter`` starts from, and at point n - 1 in the",
+        "    last row. ``stride = 1`` stores every state (point i in row i + 1).",
+        '    """',
     )
     code.indent()
     code("t, y, err = data", "mean, excess = scal", "n = t.size")
@@ -325,19 +366,43 @@ def gen_filter_store(code, tr):
     tr.preamble(code)
     init_state(code, d)
     block_loop_head(code, tr)
-    code("if dtr[b] > 0.0:")
+    filter_body(code, tr, store_obs=True)
+    code("if i == 0:")
     code.indent()
-    tr.load(code, "a", "b")
-    predict_state(code, d)
+    store_filtered(code, d, "0")
     code.dedent()
-    observe_head(code, d)
-    observe_update(code, d)
+    code("if (i + 1) % stride == 0:")
+    code.indent()
+    store_filtered(code, d, "(i + 1) // stride")
+    code.dedent()
+    code.dedent()
+    code.dedent()
+    store_filtered(code, d, "mf.shape[0] - 1")
+    code.dedent()
+
+
+def gen_refilter(code, tr):
+    d = tr.d
+    code(
+        "@njit(cache=True, nogil=True, fastmath={'contract'})",
+        f"def refilter_d{d}{tr.suffix}(data, scal, pinf, trans, work, mf, Pf):",
+        f'    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = {d}.',
+        "",
+        "    The same arithmetic as ``filter_store``, so a window started from one of",
+        "    its checkpoints reproduces the states of a whole pass.",
+        '    """',
+    )
+    code.indent()
+    code("t, y, err = data", "mean, excess = scal", "n = t.size")
+    load_pinf(code, d)
+    tr.preamble(code)
     for a in range(d):
-        code(f"mf[i, {a}] = m{a}")
+        code(f"m{a} = mf[0, {a}]")
     for a, b in upper(d):
-        code(f"Pf[i, {a}, {b}] = {sym('M', a, b)} + {sym('pf', a, b)}")
-        if a != b:
-            code(f"Pf[i, {b}, {a}] = Pf[i, {a}, {b}]")
+        code(f"{sym('M', a, b)} = Pf[0, {a}, {b}] - {sym('pf', a, b)}")
+    block_loop_head(code, tr, first=1)
+    filter_body(code, tr, store_obs=False)
+    store_filtered(code, d, "i")
     code.dedent()
     code.dedent()
     code.dedent()
@@ -567,74 +632,49 @@ def gen_loglik_grad(code, tr):
     code.dedent()
 
 
-def smooth_step(code, d, mf, Pf, ms_next, Ps_next, amat, mean_out, cov_out):
-    """One RTS step from filtered scalars to smoothed output.
-
-    ``mf``/``Pf`` name the filtered scalars (symmetric ``Pf``), ``ms_next(a)``
-    and ``Ps_next(a, b)`` give the smoothed state at the next time, and
-    ``mean_out(a, expr)``/``cov_out(a, b, expr)`` emit the stores. With the
-    predicted covariance ``pp`` and ``C = A Pf``, the gain is ``G = C^T pp^-1``
-    (solved by LDL^T, held as its transpose ``gt``).
-    """
-    for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = {sym(Pf, a, b)} - {sym('pf', a, b)}")
-    axat(code, d, amat, "qq", "w", "pp")
-    for a, b in upper(d):
-        code(f"{sym('pp', a, b)} += {sym('pf', a, b)}")
+def identity(code, d, name):
     for a in range(d):
         for c in range(d):
-            code(f"cc{a}{c} = " + dot([f"{amat}{a}{k} * {sym(Pf, k, c)}" for k in range(d)]))
-    ldl_solve(code, d, "pp", [[f"cc{i}{c}" for i in range(d)] for c in range(d)], "gt")
-    for a in range(d):
-        code(
-            f"dd{a} = {ms_next(a)} - ("
-            + dot([f"{amat}{a}{c} * {mf}{c}" for c in range(d)])
-            + ")"
-        )
-    for a in range(d):
-        mean_out(a, f"{mf}{a} + " + dot([f"gt{c}{a} * dd{c}" for c in range(d)]))
-    for a, b in upper(d):
-        code(f"{sym('dp', a, b)} = {Ps_next(a, b)} - {sym('pp', a, b)}")
-    for a in range(d):
-        for c in range(d):
-            code(f"gd{a}{c} = " + dot([f"gt{k}{a} * {sym('dp', k, c)}" for k in range(d)]))
-    for a, b in upper(d):
-        cov_out(a, b, f"{sym(Pf, a, b)} + " + dot([f"gd{a}{c} * gt{c}{b}" for c in range(d)]))
+            code(f"{name}{a}{c} = {1.0 if a == c else 0.0}")
 
 
-def gen_smooth_scalar(code, tr):
-    """The smoother for d <= 2: each RTS step whole, in scalars.
+def gen_adjoint(code, tr):
+    """The smoother in adjoint form (modified Bryson-Frazier; Bierman 1977, ch. X).
 
-    For so small a state the gain is a handful of operations, and gathering,
-    storing and reloading it (:func:`gen_smooth`) costs more than it saves
-    (d = 1 at n = 1e6: 4.5 against 6.6 ns per point).
+    Instead of smoothed states it carries, backwards in time, the adjoint
+    ``u_k = Pp_k^-1 (ms_k - mp_k)``, ``U_k = Pp_k^-1 (Pp_k - Ps_k) Pp_k^-1``
+    (``mp``, ``Pp`` the filter's prediction at ``t_k``, before observing
+    point k): what the data from k on add to that prediction. With
+    ``F = A_k (I - K_k e_0^T)`` (``A_k`` from ``t_k`` to ``t_(k+1)``,
+    ``K_k`` the Kalman gain) the recursion is
+
+        u_k = F^T u_(k+1) + (v_k / s_k) e_0,
+        U_k = F^T U_(k+1) F + (1 / s_k) e_0 e_0^T,
+
+    with no inverse and no factorisation: all it reads of the filter is
+    ``obs`` (written by ``filter_store``). Its chain is one congruence, as
+    short as the filter's. A repeated time has ``A = I``.
     """
     d = tr.d
     code(
         "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
-        f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``.',
+        f"def adjoint_d{d}{tr.suffix}(t, pinf, trans, work, obs, lam, Lam):",
+        f'    """Adjoint smoother over a window of stored filter output, d = {d}.',
         "",
-        "    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``",
-        "    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the",
-        "    filtered one for a whole series, a checkpoint for a block of it). The",
-        "    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.",
+        "    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the",
+        "    adjoint at the window's last time: that of its own observation for a",
+        "    whole series, a checkpoint for a block of it) and writes rows",
+        "    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).",
         '    """',
     )
     code.indent()
     code("n = t.size")
-    load_pinf(code, d)
     tr.preamble(code)
     for a in range(d):
-        code(f"sm{a} = ms[n - 1, {a}]")
+        code(f"u{a} = lam[n - 1, {a}]")
     for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = Ps[n - 1, {a}, {b}]")
-    code(
-        "block = work.shape[1]",
-        "dtr = work[ROW_DT]",
-        "end = n - 1",
-        "while end > 0:",
-    )
+        code(f"{sym('U', a, b)} = Lam[n - 1, {a}, {b}]")
+    code("block = work.shape[1]", "dtr = work[ROW_DT]", "end = n - 1", "while end > 0:")
     code.indent()
     code(
         "begin = max(0, end - block)",
@@ -645,46 +685,37 @@ def gen_smooth_scalar(code, tr):
     tr.fill(code)
     code("for b in range(cnt - 1, -1, -1):")
     code.indent()
-    code(
-        "k = begin + b",
-        "if dtr[b] > 0.0:",
-    )
+    code("k = begin + b", "g = obs[k, 0]", "inv = obs[k, 1]")
+    for c in range(d):
+        code(f"kk{c} = obs[k, {2 + c}]")
+    code("if dtr[b] > 0.0:")
     code.indent()
     tr.load(code, "a", "b")
-    for a in range(d):
-        code(f"fm{a} = mf[k, {a}]")
-    for a, b in upper(d):
-        code(f"{sym('f', a, b)} = Pf[k, {a}, {b}]")
-
-    def mean_out(a, expr):
-        code(f"nm{a} = {expr}")
-
-    def cov_out(a, b, expr):
-        code(f"{sym('np', a, b)} = {expr}")
-
-    smooth_step(
-        code, d, "fm", "f",
-        lambda a: f"sm{a}",
-        lambda a, b: sym("sp", a, b),
-        "a", mean_out, cov_out,
-    )
-    for a in range(d):
-        code(f"sm{a} = nm{a}")
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = {sym('np', a, b)}")
     code.dedent()
-    store_smoothed_and_close(code, d)
-
-
-def store_smoothed_and_close(code, d):
-    """Write the smoothed state of step ``k`` and close the step, block and chunk loops."""
-    code("# (a repeated time keeps the state: one state, conditioned on every copy)")
+    code("else:")
+    code.indent()
+    identity(code, d, "a")
+    code.dedent()
+    # F = A (I - K e0^T): only column 0 differs from A
     for a in range(d):
-        code(f"ms[k, {a}] = sm{a}")
+        code(f"f{a}0 = a{a}0 - (" + dot([f"a{a}{c} * kk{c}" for c in range(d)]) + ")")
+        for c in range(1, d):
+            code(f"f{a}{c} = a{a}{c}")
+    for a in range(d):
+        for c in range(d):
+            code(f"w{a}{c} = " + dot([f"f{k}{a} * {sym('U', k, c)}" for k in range(d)]))
     for a, b in upper(d):
-        code(f"Ps[k, {a}, {b}] = {sym('sp', a, b)}")
+        terms = [f"w{a}{c} * f{c}{b}" for c in range(d)]
+        code(f"{sym('V', a, b)} = " + dot((["inv"] if a == b == 0 else []) + terms))
+    for a in range(d):
+        terms = [f"f{k}{a} * u{k}" for k in range(d)]
+        code(f"x{a} = " + dot((["g"] if a == 0 else []) + terms))
+    for a in range(d):
+        code(f"u{a} = x{a}", f"lam[k, {a}] = u{a}")
+    for a, b in upper(d):
+        code(f"{sym('U', a, b)} = {sym('V', a, b)}", f"Lam[k, {a}, {b}] = {sym('U', a, b)}")
         if a != b:
-            code(f"Ps[k, {b}, {a}] = {sym('sp', a, b)}")
+            code(f"Lam[k, {b}, {a}] = {sym('U', a, b)}")
     code.dedent()
     code("end = begin")
     code.dedent()
@@ -706,186 +737,6 @@ def lane_transition(code, tr, name, h, e, rows):
                 code(f"{name}{a}{c} = vload({rows}{a * d + c}, b)")
 
 
-def smooth_gain_lanes(code, tr):
-    """RTS gains of the four steps ``b .. b + 3`` as 4-tuples, stored to ``gain`` rows.
-
-    Everything of an RTS step but the recursion itself depends only on the
-    filtered state and ``A``: the predicted covariance ``pp``, ``C = A Pf``,
-    the gain ``G = C^T pp^-1`` (by LDL^T, held as its transpose ``gt``) and
-    ``x = A mf``. Four steps at a time in vector lanes take these off the
-    backward chain (:func:`gen_smooth`). Lanes past the block's last step read
-    its last filtered state and give values nobody reads.
-    """
-    d = tr.d
-    code("k0 = begin + b")
-    code(*[f"k{j} = min(k0 + {j}, last)" for j in (1, 2, 3)])
-    ks = ["k0", "k1", "k2", "k3"]
-
-    def gather(expr):
-        return "(" + ", ".join(expr.format(k=k) for k in ks) + ")"
-
-    if tr.single:
-        code("ve = vload(re, b)")
-        if d > 1:
-            code("vh = vload(rh, b)")
-    lane_transition(code, tr, "va", "vh", "ve", "ra")
-    for a, b in upper(d):
-        code(f"{sym('vf', a, b)} = {gather(f'Pf[{{k}}, {a}, {b}]')}")
-    for a in range(d):
-        code(f"vfm{a} = {gather(f'mf[{{k}}, {a}]')}")
-    for a, b in upper(d):
-        code(f"{sym('vq', a, b)} = vsub({sym('vf', a, b)}, {sym('vpf', a, b)})")
-    for a in range(d):
-        for c in range(d):
-            code(f"vw{a}{c} = " + vsum([(f"va{a}{k}", sym("vq", k, c)) for k in range(d)]))
-    for a, b in upper(d):
-        code(f"{sym('vp', a, b)} = "
-             + vsum([(f"vw{a}{c}", f"va{b}{c}") for c in range(d)], sym("vpf", a, b)))
-    for a in range(d):
-        for c in range(d):
-            code(f"vcc{a}{c} = " + vsum([(f"va{a}{k}", sym("vf", k, c)) for k in range(d)]))
-    # LDL^T of pp; a pivot without variance gets no weight (vrecip_pos)
-    for j in range(d):
-        sub = vsum([(f"vl{j}{k}", f"vmul(vl{j}{k}, vdg{k})") for k in range(j)])
-        code(f"vdg{j} = " + (f"vsub({sym('vp', j, j)}, {sub})" if j else sym("vp", 0, 0)))
-        code(f"viv{j} = vrecip_pos(vdg{j})")
-        for i in range(j + 1, d):
-            sub = vsum([(f"vl{i}{k}", f"vmul(vl{j}{k}, vdg{k})") for k in range(j)])
-            num = f"vsub({sym('vp', i, j)}, {sub})" if j else sym("vp", i, j)
-            code(f"vl{i}{j} = vmul({num}, viv{j})")
-    for col in range(d):
-        for i in range(d):
-            sub = vsum([(f"vl{i}{k}", f"vz{k}") for k in range(i)])
-            code(f"vz{i} = " + (f"vsub(vcc{i}{col}, {sub})" if i else f"vcc{i}{col}"))
-        for i in range(d - 1, -1, -1):
-            sub = vsum([(f"vl{k}{i}", f"vg{k}{col}") for k in range(i + 1, d)])
-            scaled = f"vmul(vz{i}, viv{i})"
-            code(f"vg{i}{col} = " + (f"vsub({scaled}, {sub})" if i < d - 1 else scaled))
-    for i in range(d):
-        for c in range(d):
-            code(f"vstore(rg{i * d + c}, b, vg{i}{c})")
-    for a, b in upper(d):
-        code(f"vstore(rp{packed(d, a, b)}, b, {sym('vp', a, b)})")
-    for a in range(d):
-        code(f"vstore(rx{a}, b, " + vsum([(f"va{a}{c}", f"vfm{c}") for c in range(d)]) + ")")
-
-
-def smooth_recursion(code, d):
-    """One backward RTS step at step ``b`` from the gains stored by :func:`smooth_gain_lanes`.
-
-    ``ms = mf + G (sm - A mf)``, ``Ps = Pf + G (sp - pp) G^T`` (Rauch, Tung &
-    Striebel 1965), with the smoothed state ``sm``/``sp`` of the next time
-    carried in scalars.
-    """
-    for a in range(d):
-        code(f"fm{a} = mf[k, {a}]")
-    for i in range(d):
-        for c in range(d):
-            code(f"gt{i}{c} = gain[G_GT + {i * d + c}, b]")
-    for a in range(d):
-        code(f"dd{a} = sm{a} - gain[G_X + {a}, b]")
-    for a, b in upper(d):
-        code(f"{sym('dp', a, b)} = {sym('sp', a, b)} - gain[G_PP + {packed(d, a, b)}, b]")
-    for a in range(d):
-        code(f"sm{a} = fm{a} + " + dot([f"gt{c}{a} * dd{c}" for c in range(d)]))
-    for a in range(d):
-        for c in range(d):
-            code(f"gd{a}{c} = " + dot([f"gt{k}{a} * {sym('dp', k, c)}" for k in range(d)]))
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = Pf[k, {a}, {b}] + "
-             + dot([f"gd{a}{c} * gt{c}{b}" for c in range(d)]))
-
-
-def gen_smooth(code, tr):
-    d = tr.d
-    if d < 3:
-        gen_smooth_scalar(code, tr)
-        return
-    ns = d * (d + 1) // 2
-    code(
-        "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def smooth_d{d}{tr.suffix}(t, pinf, trans, work, mf, Pf, ms, Ps):",
-        f'    """RTS smoother over stored filter output, d = {d}; as ``kalman.smooth``.',
-        "",
-        "    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``",
-        "    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the",
-        "    filtered one for a whole series, a checkpoint for a block of it). The",
-        "    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.",
-        "",
-        "    Per block of ``work.shape[1]`` steps, first the gains of every step, four",
-        "    steps at a time in vector lanes (they do not depend on the recursion),",
-        "    then the backward recursion reading them. Only the width of ``work`` is",
-        "    used: the smoother keeps transitions and gains in its own scratch, padded",
-        "    to whole groups of four, so every step takes the same lane arithmetic",
-        "    whatever the block boundaries (a lean posterior's blocks then reproduce",
-        "    a whole pass exactly).",
-        '    """',
-    )
-    code.indent()
-    code("n = t.size")
-    load_pinf(code, d)
-    tr.preamble(code)
-    for a, b in upper(d):
-        code(f"{sym('vpf', a, b)} = vsplat({sym('pf', a, b)})")
-    if tr.single:
-        for k in range(d):
-            for a in range(d):
-                for c in range(d):
-                    code(f"vc{k}{a}{c} = vsplat(c{k}{a}{c})")
-    code(
-        "block = work.shape[1]",
-        "width = (block + 3) // 4 * 4",
-        f"scratch = np.zeros((ROW_A + {d * d}, width))",
-        "dtr = scratch[ROW_DT]",
-        "G_GT = 0",
-        f"G_PP = {d * d}",
-        f"G_X = {d * d + ns}",
-        f"gain = np.zeros(({d * d + ns + d}, width))",
-    )
-    code("# row views once, outside the loops (a view per step costs reference counts)")
-    for e in range(d * d):
-        code(f"rg{e} = gain[G_GT + {e}]")
-    for e in range(ns):
-        code(f"rp{e} = gain[G_PP + {e}]")
-    for a in range(d):
-        code(f"rx{a} = gain[G_X + {a}]")
-    if tr.single:
-        code("re = scratch[ROW_E]")
-        if d > 1:
-            code("rh = scratch[ROW_DT]")
-    else:
-        for e in range(d * d):
-            code(f"ra{e} = scratch[ROW_A + {e}]")
-    for a in range(d):
-        code(f"sm{a} = ms[n - 1, {a}]")
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = Ps[n - 1, {a}, {b}]")
-    code("end = n - 1", "while end > 0:")
-    code.indent()
-    code(
-        "begin = max(0, end - block)",
-        "cnt = end - begin",
-        "last = end - 1",
-        "# dtr[b] = t[begin + b + 1] - t[begin + b]",
-        "step_sizes(t, begin + 1, cnt, dtr)",
-    )
-    if tr.single:
-        code("fill_decay(cnt, rate0, scratch)")
-    else:
-        code("fill_transition(cnt, trans, scratch, ROW_A)")
-    code("for b in range(0, cnt, 4):")
-    code.indent()
-    smooth_gain_lanes(code, tr)
-    code.dedent()
-    code("for b in range(cnt - 1, -1, -1):")
-    code.indent()
-    code("k = begin + b", "if dtr[b] > 0.0:")
-    code.indent()
-    smooth_recursion(code, d)
-    code.dedent()
-    store_smoothed_and_close(code, d)
-
-
 def gen_predict(code, tr, serial=False):
     d = tr.d
     dd = d * d
@@ -901,17 +752,22 @@ def gen_predict(code, tr, serial=False):
     )
     code(
         f"@njit(cache=True, {flags}, fastmath={{'contract'}})",
-        f"def {name}_d{d}{tr.suffix}(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):",
+        f"def {name}_d{d}{tr.suffix}(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):",
         f'    """Posterior mean and variance of ``f = x_0`` at query times, d = {d}.',
         "",
         "    As ``kalman.predict_between`` (``idx[i]`` is the last training index with",
-        "    ``t <= tq[i]``, -1 before the first) but only the first component is formed:",
-        "    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.",
+        "    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``",
+        "    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):",
+        "    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``",
+        "    (``A2`` from the query to the next data time), the mean is",
+        "    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After",
+        "    the last data time it is the filter's prediction (the smoothed state",
+        "    there is the filtered one).",
         *how,
         '    """',
     )
     code.indent()
-    code("mf, Pf = filt", "ms, Ps = smoothed", "n = t.size", "nq = tq.size")
+    code("mf, Pf = filt", "lam, Lam = adj", "n = t.size", "nq = tq.size")
     load_pinf(code, d)
     tr.preamble(code)
     code("n_chunks = (nq + PREDICT_CHUNK - 1) // PREDICT_CHUNK")
@@ -963,58 +819,38 @@ def gen_predict(code, tr, serial=False):
     code.dedent()
     code.dedent()
     code("# one query at a time: chunk tails, and queries outside the data span")
-    code("k = idx[i]", "if k < 0:")
-    code.indent()
-    for a in range(d):
-        code(f"sm{a} = 0.0")
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = {sym('pf', a, b)}")
-    code.dedent()
-    code("else:")
-    code.indent()
-    code(
-        "# after the last time the smoothed state, else the filtered one (no views:",
-        "# a view per query would cost reference-count updates)",
-        "src_m = ms if k == n - 1 else mf",
-        "src_P = Ps if k == n - 1 else Pf",
-    )
+    code("k = idx[i]")
     if tr.single:
         tr.load(code, "a", "b", dt_row="ROW_A", e_row="ROW_A + 1")
     else:
         tr.load(code, "a", "b")
+    code("if k >= 0:")
+    code.indent()
     for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = src_P[k, {a}, {b}] - {sym('pf', a, b)}")
-    axat(code, d, "a", "qq", "w", "sp")
-    for a, b in upper(d):
-        code(f"{sym('sp', a, b)} += {sym('pf', a, b)}")
+        code(f"{sym('qq', a, b)} = Pf[k, {a}, {b}] - {sym('pf', a, b)}")
     for a in range(d):
-        code(f"sm{a} = " + dot([f"a{a}{c} * src_m[k, {c}]" for c in range(d)]))
+        code(f"fm{a} = mf[k, {a}]")
     code.dedent()
-    code("mean = sm0", "var = sp00", "if k < n - 1:")
+    code("else:  # before the first time: the prior")
+    code.indent()
+    for a, b in upper(d):
+        code(f"{sym('qq', a, b)} = 0.0")
+    for a in range(d):
+        code(f"fm{a} = 0.0")
+    code.dedent()
+    query_terms(code, d, lambda a, c: f"a{a}{c}", lambda a: f"fm{a}", lambda a, b: sym("qq", a, b))
+    code("mean = mq", "var = p0", "if k < n - 1:")
     code.indent()
     if tr.single:
         tr.load(code, "e", "b")
     else:
         tr.load(code, "e", "b", row=f"ROW_A + {dd}")
-    for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = {sym('sp', a, b)} - {sym('pf', a, b)}")
-    axat(code, d, "e", "qq", "w", "pp")
-    for a, b in upper(d):
-        code(f"{sym('pp', a, b)} += {sym('pf', a, b)}")
-    rhs = [dot([f"e{a}{c} * {sym('sp', c, 0)}" for c in range(d)]) for a in range(d)]
-    ldl_solve(code, d, "pp", [rhs], "gg")
     for a in range(d):
-        code(
-            f"dd{a} = ms[k + 1, {a}] - ("
-            + dot([f"e{a}{c} * sm{c}" for c in range(d)])
-            + ")"
-        )
-    code("mean += " + dot([f"gg{a}0 * dd{a}" for a in range(d)]))
-    for a, b in upper(d):
-        code(f"{sym('dp', a, b)} = Ps[k + 1, {a}, {b}] - {sym('pp', a, b)}")
+        code(f"cc{a} = " + dot([f"e{a}{c} * p{c}" for c in range(d)]))
+    code("mean += " + dot([f"cc{a} * lam[k + 1, {a}]" for a in range(d)]))
     for a in range(d):
-        code(f"y{a} = " + dot([f"{sym('dp', a, c)} * gg{c}0" for c in range(d)]))
-    code("var += " + dot([f"gg{a}0 * y{a}" for a in range(d)]))
+        code(f"y{a} = " + dot([f"Lam[k + 1, {a}, {c}] * cc{c}" for c in range(d)]))
+    code("var -= " + dot([f"cc{a} * y{a}" for a in range(d)]))
     code.dedent()
     code("out_mean[i] = mean", "out_var[i] = max(var, 0.0)", "b += 1")
     code.dedent()
@@ -1045,6 +881,30 @@ def predict_vector_setup(code, tr):
             code(f"ra{e} = work[ROW_A + {e}]", f"rb{e} = work[ROW_A + {dd + e}]")
 
 
+def query_terms(code, d, amat, fm, qq, ops=None):
+    """The filter's prediction at a query from the filtered state before it.
+
+    With ``A1`` (``amat(a, c)``) from that state to the query and
+    ``Q = Pf - Pinf`` (``qq(a, b)``): ``w = Q r`` for ``r = A1^T e_0``, then
+    ``p = P e_0 = Pinf e_0 + A1 w`` (so ``p0`` is the variance) and the mean
+    ``mq = r . mf``. ``ops`` switches to lane arithmetic (``vsum``, ``vsplat``).
+    """
+    if ops is None:
+        def total(pairs, add=None):
+            return dot(([add] if add else []) + [f"{x} * {y}" for x, y in pairs])
+        const = sym
+    else:
+        total = vsum
+
+        def const(name, a, b):
+            return sym("v" + name, a, b)
+    for a in range(d):
+        code(f"w{a} = " + total([(qq(a, c), amat(0, c)) for c in range(d)]))
+    for a in range(d):
+        code(f"p{a} = " + total([(amat(a, c), f"w{c}") for c in range(d)], const("pf", a, 0)))
+    code("mq = " + total([(amat(0, c), fm(c)) for c in range(d)]))
+
+
 def predict_vector_body(code, tr):
     """Four interior queries (``0 <= k < n - 1``) at once, as 4-tuples (``lanes.py``)."""
     d = tr.d
@@ -1053,61 +913,28 @@ def predict_vector_body(code, tr):
     def gather(expr):  # expr with {k} for the data index
         return "(" + ", ".join(expr.format(k=k) for k in ks) + ")"
 
-    def transition(name, h, e, rows):
-        lane_transition(code, tr, name, h, e, rows)
-
     if tr.single:
         code("e1 = vload(re1, b)", "e2 = vload(re2, b)")
         if d > 1:
             code("h1 = vload(rh1, b)", "h2 = vload(rh2, b)")
-    transition("a", "h1", "e1", "ra")
+    lane_transition(code, tr, "a", "h1", "e1", "ra")
     for a, b in upper(d):
         code(f"{sym('qq', a, b)} = vsub({gather(f'Pf[{{k}}, {a}, {b}]')}, {sym('vpf', a, b)})")
     for a in range(d):
         code(f"fm{a} = {gather(f'mf[{{k}}, {a}]')}")
+    query_terms(code, d, lambda a, c: f"a{a}{c}", lambda a: f"fm{a}",
+                lambda a, b: sym("qq", a, b), ops="lanes")
+    lane_transition(code, tr, "e", "h2", "e2", "rb")
     for a in range(d):
-        for c in range(d):
-            code(f"w{a}{c} = " + vdot([(f"a{a}{k}", sym("qq", k, c)) for k in range(d)]))
+        code(f"cc{a} = " + vsum([(f"e{a}{c}", f"p{c}") for c in range(d)]))
+    for a in range(d):
+        code(f"u{a} = {gather(f'lam[{{k}} + 1, {a}]')}")
     for a, b in upper(d):
-        code(f"{sym('sp', a, b)} = "
-             + vdot([(f"w{a}{c}", f"a{b}{c}") for c in range(d)], sym("vpf", a, b)))
+        code(f"{sym('U', a, b)} = {gather(f'Lam[{{k}} + 1, {a}, {b}]')}")
+    code("vmean = " + vsum([(f"cc{a}", f"u{a}") for a in range(d)], "mq"))
     for a in range(d):
-        code(f"sm{a} = " + vdot([(f"a{a}{c}", f"fm{c}") for c in range(d)]))
-    transition("e", "h2", "e2", "rb")
-    for a, b in upper(d):
-        code(f"{sym('qq', a, b)} = vsub({sym('sp', a, b)}, {sym('vpf', a, b)})")
-    for a in range(d):
-        for c in range(d):
-            code(f"w{a}{c} = " + vdot([(f"e{a}{k}", sym("qq", k, c)) for k in range(d)]))
-    for a, b in upper(d):
-        code(f"{sym('pp', a, b)} = "
-             + vdot([(f"w{a}{c}", f"e{b}{c}") for c in range(d)], sym("vpf", a, b)))
-    # LDL^T of pp and the solve pp g = A2 P*[:, 0]
-    for j in range(d):
-        sub = vdot([(f"l{j}{k}", f"vmul(l{j}{k}, dg{k})") for k in range(j)])
-        code(f"dg{j} = " + (f"vsub({sym('pp', j, j)}, {sub})" if j else sym("pp", 0, 0)))
-        code(f"iv{j} = vrecip_pos(dg{j})")
-        for i in range(j + 1, d):
-            sub = vdot([(f"l{i}{k}", f"vmul(l{j}{k}, dg{k})") for k in range(j)])
-            num = f"vsub({sym('pp', i, j)}, {sub})" if j else sym("pp", i, j)
-            code(f"l{i}{j} = vmul({num}, iv{j})")
-    for i in range(d):
-        rhs = vdot([(f"e{i}{c}", sym("sp", c, 0)) for c in range(d)])
-        sub = vdot([(f"l{i}{k}", f"z{k}") for k in range(i)])
-        code(f"z{i} = " + (f"vsub({rhs}, {sub})" if i else rhs))
-    for i in range(d - 1, -1, -1):
-        sub = vdot([(f"l{k}{i}", f"g{k}") for k in range(i + 1, d)])
-        scaled = f"vmul(z{i}, iv{i})"
-        code(f"g{i} = " + (f"vsub({scaled}, {sub})" if i < d - 1 else scaled))
-    for a in range(d):
-        nxt = gather(f"ms[{{k}} + 1, {a}]")
-        code(f"dd{a} = vsub({nxt}, " + vdot([(f"e{a}{c}", f"sm{c}") for c in range(d)]) + ")")
-    code("vmean = " + vdot([(f"g{a}", f"dd{a}") for a in range(d)], "sm0"))
-    for a, b in upper(d):
-        code(f"{sym('dp', a, b)} = vsub({gather(f'Ps[{{k}} + 1, {a}, {b}]')}, {sym('pp', a, b)})")
-    for a in range(d):
-        code(f"y{a} = " + vdot([(sym("dp", a, c), f"g{c}") for c in range(d)]))
-    code("vvar = " + vdot([(f"g{a}", f"y{a}") for a in range(d)], "sp00"))
+        code(f"y{a} = " + vsum([(sym("U", a, c), f"cc{c}") for c in range(d)]))
+    code("vvar = vsub(p0, " + vsum([(f"cc{a}", f"y{a}") for a in range(d)]) + ")")
     code("vstore(out_mean, i, vmean)", "vstore(out_var, i, vmax0(vvar))")
 
 
@@ -1115,7 +942,8 @@ def gen_predict_serial(code, tr):
     gen_predict(code, tr, serial=True)
 
 
-GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_smooth, gen_predict,
+GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_refilter, gen_adjoint,
+              gen_predict,
               gen_predict_serial)
 
 

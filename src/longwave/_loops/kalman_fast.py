@@ -36,7 +36,7 @@ from .blocked_transition import (
     fill_transition_grad,
     step_sizes,
 )
-from .lanes import vadd, vfma, vload, vmax0, vmul, vrecip_pos, vsplat, vstore, vsub
+from .lanes import vadd, vfma, vload, vmax0, vmul, vsplat, vstore, vsub
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -1820,8 +1820,17 @@ def loglik_grad_d3_multi(data, scal, pinf, trans, sens, work):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 1."""
+def filter_store_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 1.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -1853,15 +1862,33 @@ def filter_store_d1_single(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
             m0 += h0 * g
             M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            Pf[i, 0, 0] = M00 + pf00
+            if i == 0:
+                mf[0, 0] = m0
+                Pf[0, 0, 0] = M00 + pf00
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+    mf[mf.shape[0] - 1, 0] = m0
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 2."""
+def filter_store_d2_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 2.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -1917,22 +1944,49 @@ def filter_store_d2_single(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
             m0 += h0 * g
             m1 += h1 * g
             M11 -= h1 * inv * h1
             M01 = h1 * r * inv - pf01
             M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 1, 1] = M11 + pf11
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 1, 1] = M11 + pf11
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 3."""
+def filter_store_d3_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 3.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -2030,6 +2084,11 @@ def filter_store_d3_single(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
             m0 += h0 * g
             m1 += h1 * g
             m2 += h2 * g
@@ -2039,23 +2098,58 @@ def filter_store_d3_single(data, scal, pinf, trans, work, mf, Pf):
             M02 = h2 * r * inv - pf02
             M01 = h1 * r * inv - pf01
             M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            mf[i, 2] = m2
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 0, 2] = M02 + pf02
-            Pf[i, 2, 0] = Pf[i, 0, 2]
-            Pf[i, 1, 1] = M11 + pf11
-            Pf[i, 1, 2] = M12 + pf12
-            Pf[i, 2, 1] = Pf[i, 1, 2]
-            Pf[i, 2, 2] = M22 + pf22
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                mf[0, 2] = m2
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 0, 2] = M02 + pf02
+                Pf[0, 2, 0] = Pf[0, 0, 2]
+                Pf[0, 1, 1] = M11 + pf11
+                Pf[0, 1, 2] = M12 + pf12
+                Pf[0, 2, 1] = Pf[0, 1, 2]
+                Pf[0, 2, 2] = M22 + pf22
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                mf[(i + 1) // stride, 2] = m2
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
+                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
+                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
+                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    mf[mf.shape[0] - 1, 2] = m2
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
+    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
+    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
+    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 1."""
+def filter_store_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 1.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -2083,15 +2177,33 @@ def filter_store_d1_multi(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
             m0 += h0 * g
             M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            Pf[i, 0, 0] = M00 + pf00
+            if i == 0:
+                mf[0, 0] = m0
+                Pf[0, 0, 0] = M00 + pf00
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+    mf[mf.shape[0] - 1, 0] = m0
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 2."""
+def filter_store_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 2.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -2135,22 +2247,49 @@ def filter_store_d2_multi(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
             m0 += h0 * g
             m1 += h1 * g
             M11 -= h1 * inv * h1
             M01 = h1 * r * inv - pf01
             M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 1, 1] = M11 + pf11
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 1, 1] = M11 + pf11
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered means ``mf`` (n, d) and covariances ``Pf`` (n, d, d), d = 3."""
+def filter_store_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
+    """Observation terms of every point and filtered states every ``stride``, d = 3.
+
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
+    of every window that ``refilter`` starts from, and at point n - 1 in the
+    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    """
     t, y, err = data
     mean, excess = scal
     n = t.size
@@ -2172,6 +2311,482 @@ def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
     block = work.shape[1]
     dtr = work[ROW_DT]
     for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                mf[0, 2] = m2
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 0, 2] = M02 + pf02
+                Pf[0, 2, 0] = Pf[0, 0, 2]
+                Pf[0, 1, 1] = M11 + pf11
+                Pf[0, 1, 2] = M12 + pf12
+                Pf[0, 2, 1] = Pf[0, 1, 2]
+                Pf[0, 2, 2] = M22 + pf22
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                mf[(i + 1) // stride, 2] = m2
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
+                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
+                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
+                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    mf[mf.shape[0] - 1, 2] = m2
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
+    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
+    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
+    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d1_single(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 1.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    m0 = mf[0, 0]
+    M00 = Pf[0, 0, 0] - pf00
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                a00 = ee * (c000)
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            Pf[i, 0, 0] = M00 + pf00
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d2_single(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 2.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    m0 = mf[0, 0]
+    m1 = mf[0, 1]
+    M00 = Pf[0, 0, 0] - pf00
+    M01 = Pf[0, 0, 1] - pf01
+    M11 = Pf[0, 1, 1] - pf11
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 1, 1] = M11 + pf11
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d3_single(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 3.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c002 = coef[0, 0, 0, 2]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c012 = coef[0, 0, 1, 2]
+    c020 = coef[0, 0, 2, 0]
+    c021 = coef[0, 0, 2, 1]
+    c022 = coef[0, 0, 2, 2]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c102 = coef[0, 1, 0, 2]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    c112 = coef[0, 1, 1, 2]
+    c120 = coef[0, 1, 2, 0]
+    c121 = coef[0, 1, 2, 1]
+    c122 = coef[0, 1, 2, 2]
+    c200 = coef[0, 2, 0, 0]
+    c201 = coef[0, 2, 0, 1]
+    c202 = coef[0, 2, 0, 2]
+    c210 = coef[0, 2, 1, 0]
+    c211 = coef[0, 2, 1, 1]
+    c212 = coef[0, 2, 1, 2]
+    c220 = coef[0, 2, 2, 0]
+    c221 = coef[0, 2, 2, 1]
+    c222 = coef[0, 2, 2, 2]
+    m0 = mf[0, 0]
+    m1 = mf[0, 1]
+    m2 = mf[0, 2]
+    M00 = Pf[0, 0, 0] - pf00
+    M01 = Pf[0, 0, 1] - pf01
+    M02 = Pf[0, 0, 2] - pf02
+    M11 = Pf[0, 1, 1] - pf11
+    M12 = Pf[0, 1, 2] - pf12
+    M22 = Pf[0, 2, 2] - pf22
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            mf[i, 2] = m2
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 0, 2] = M02 + pf02
+            Pf[i, 2, 0] = Pf[i, 0, 2]
+            Pf[i, 1, 1] = M11 + pf11
+            Pf[i, 1, 2] = M12 + pf12
+            Pf[i, 2, 1] = Pf[i, 1, 2]
+            Pf[i, 2, 2] = M22 + pf22
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d1_multi(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 1.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    m0 = mf[0, 0]
+    M00 = Pf[0, 0, 0] - pf00
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            Pf[i, 0, 0] = M00 + pf00
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d2_multi(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 2.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    m0 = mf[0, 0]
+    m1 = mf[0, 1]
+    M00 = Pf[0, 0, 0] - pf00
+    M01 = Pf[0, 0, 1] - pf01
+    M11 = Pf[0, 1, 1] - pf11
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 1, 1] = M11 + pf11
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d3_multi(data, scal, pinf, trans, work, mf, Pf):
+    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 3.
+
+    The same arithmetic as ``filter_store``, so a window started from one of
+    its checkpoints reproduces the states of a whole pass.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    m0 = mf[0, 0]
+    m1 = mf[0, 1]
+    m2 = mf[0, 2]
+    M00 = Pf[0, 0, 0] - pf00
+    M01 = Pf[0, 0, 1] - pf01
+    M02 = Pf[0, 0, 2] - pf02
+    M11 = Pf[0, 1, 1] - pf11
+    M12 = Pf[0, 1, 2] - pf12
+    M22 = Pf[0, 2, 2] - pf22
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(1, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_transition(cnt, trans, work, ROW_A)
@@ -2241,21 +2856,20 @@ def filter_store_d3_multi(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
+def adjoint_d1_single(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 1.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
-    sm0 = ms[n - 1, 0]
-    sp00 = Ps[n - 1, 0, 0]
+    u0 = lam[n - 1, 0]
+    U00 = Lam[n - 1, 0, 0]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2267,46 +2881,35 @@ def smooth_d1_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
             if dtr[b] > 0.0:
                 ee = work[ROW_E, b]
                 a00 = ee * (c000)
-                fm0 = mf[k, 0]
-                f00 = Pf[k, 0, 0]
-                qq00 = f00 - pf00
-                w00 = a00 * qq00
-                pp00 = w00 * a00
-                pp00 += pf00
-                cc00 = a00 * f00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = cc00
-                gt00 = z0 * iv0
-                dd0 = sm0 - (a00 * fm0)
-                nm0 = fm0 + gt00 * dd0
-                dp00 = sp00 - pp00
-                gd00 = gt00 * dp00
-                np00 = f00 + gd00 * gt00
-                sm0 = nm0
-                sp00 = np00
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            Ps[k, 0, 0] = sp00
+            else:
+                a00 = 1.0
+            f00 = a00 - (a00 * kk0)
+            w00 = f00 * U00
+            V00 = inv + w00 * f00
+            x0 = g + f00 * u0
+            u0 = x0
+            lam[k, 0] = u0
+            U00 = V00
+            Lam[k, 0, 0] = U00
         end = begin
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
+def adjoint_d2_single(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 2.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
@@ -2317,11 +2920,11 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c101 = coef[0, 1, 0, 1]
     c110 = coef[0, 1, 1, 0]
     c111 = coef[0, 1, 1, 1]
-    sm0 = ms[n - 1, 0]
-    sm1 = ms[n - 1, 1]
-    sp00 = Ps[n - 1, 0, 0]
-    sp01 = Ps[n - 1, 0, 1]
-    sp11 = Ps[n - 1, 1, 1]
+    u0 = lam[n - 1, 0]
+    u1 = lam[n - 1, 1]
+    U00 = Lam[n - 1, 0, 0]
+    U01 = Lam[n - 1, 0, 1]
+    U11 = Lam[n - 1, 1, 1]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2333,6 +2936,10 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
+            kk1 = obs[k, 3]
             if dtr[b] > 0.0:
                 ee = work[ROW_E, b]
                 hh = work[ROW_DT, b]
@@ -2340,94 +2947,48 @@ def smooth_d2_single(t, pinf, trans, work, mf, Pf, ms, Ps):
                 a01 = ee * (c001 + hh * c101)
                 a10 = ee * (c010 + hh * c110)
                 a11 = ee * (c011 + hh * c111)
-                fm0 = mf[k, 0]
-                fm1 = mf[k, 1]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f11 = Pf[k, 1, 1]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq11 = f11 - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                pp00 = w00 * a00 + w01 * a01
-                pp01 = w00 * a10 + w01 * a11
-                pp11 = w10 * a10 + w11 * a11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                cc00 = a00 * f00 + a01 * f01
-                cc01 = a00 * f01 + a01 * f11
-                cc10 = a10 * f00 + a11 * f01
-                cc11 = a10 * f01 + a11 * f11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                gt10 = z1 * iv1
-                gt00 = z0 * iv0 - l10 * gt10
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                gt11 = z1 * iv1
-                gt01 = z0 * iv0 - l10 * gt11
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp11 = sp11 - pp11
-                gd00 = gt00 * dp00 + gt10 * dp01
-                gd01 = gt00 * dp01 + gt10 * dp11
-                gd10 = gt01 * dp00 + gt11 * dp01
-                gd11 = gt01 * dp01 + gt11 * dp11
-                np00 = f00 + gd00 * gt00 + gd01 * gt10
-                np01 = f01 + gd00 * gt01 + gd01 * gt11
-                np11 = f11 + gd10 * gt01 + gd11 * gt11
-                sm0 = nm0
-                sm1 = nm1
-                sp00 = np00
-                sp01 = np01
-                sp11 = np11
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            ms[k, 1] = sm1
-            Ps[k, 0, 0] = sp00
-            Ps[k, 0, 1] = sp01
-            Ps[k, 1, 0] = sp01
-            Ps[k, 1, 1] = sp11
+            else:
+                a00 = 1.0
+                a01 = 0.0
+                a10 = 0.0
+                a11 = 1.0
+            f00 = a00 - (a00 * kk0 + a01 * kk1)
+            f01 = a01
+            f10 = a10 - (a10 * kk0 + a11 * kk1)
+            f11 = a11
+            w00 = f00 * U00 + f10 * U01
+            w01 = f00 * U01 + f10 * U11
+            w10 = f01 * U00 + f11 * U01
+            w11 = f01 * U01 + f11 * U11
+            V00 = inv + w00 * f00 + w01 * f10
+            V01 = w00 * f01 + w01 * f11
+            V11 = w10 * f01 + w11 * f11
+            x0 = g + f00 * u0 + f10 * u1
+            x1 = f01 * u0 + f11 * u1
+            u0 = x0
+            lam[k, 0] = u0
+            u1 = x1
+            lam[k, 1] = u1
+            U00 = V00
+            Lam[k, 0, 0] = U00
+            U01 = V01
+            Lam[k, 0, 1] = U01
+            Lam[k, 1, 0] = U01
+            U11 = V11
+            Lam[k, 1, 1] = U11
         end = begin
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
+def adjoint_d3_single(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 3.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
     rate0 = trans[0][0]
     coef = trans[2]
     c000 = coef[0, 0, 0, 0]
@@ -2457,256 +3018,116 @@ def smooth_d3_single(t, pinf, trans, work, mf, Pf, ms, Ps):
     c220 = coef[0, 2, 2, 0]
     c221 = coef[0, 2, 2, 1]
     c222 = coef[0, 2, 2, 2]
-    vpf00 = vsplat(pf00)
-    vpf01 = vsplat(pf01)
-    vpf02 = vsplat(pf02)
-    vpf11 = vsplat(pf11)
-    vpf12 = vsplat(pf12)
-    vpf22 = vsplat(pf22)
-    vc000 = vsplat(c000)
-    vc001 = vsplat(c001)
-    vc002 = vsplat(c002)
-    vc010 = vsplat(c010)
-    vc011 = vsplat(c011)
-    vc012 = vsplat(c012)
-    vc020 = vsplat(c020)
-    vc021 = vsplat(c021)
-    vc022 = vsplat(c022)
-    vc100 = vsplat(c100)
-    vc101 = vsplat(c101)
-    vc102 = vsplat(c102)
-    vc110 = vsplat(c110)
-    vc111 = vsplat(c111)
-    vc112 = vsplat(c112)
-    vc120 = vsplat(c120)
-    vc121 = vsplat(c121)
-    vc122 = vsplat(c122)
-    vc200 = vsplat(c200)
-    vc201 = vsplat(c201)
-    vc202 = vsplat(c202)
-    vc210 = vsplat(c210)
-    vc211 = vsplat(c211)
-    vc212 = vsplat(c212)
-    vc220 = vsplat(c220)
-    vc221 = vsplat(c221)
-    vc222 = vsplat(c222)
+    u0 = lam[n - 1, 0]
+    u1 = lam[n - 1, 1]
+    u2 = lam[n - 1, 2]
+    U00 = Lam[n - 1, 0, 0]
+    U01 = Lam[n - 1, 0, 1]
+    U02 = Lam[n - 1, 0, 2]
+    U11 = Lam[n - 1, 1, 1]
+    U12 = Lam[n - 1, 1, 2]
+    U22 = Lam[n - 1, 2, 2]
     block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 9, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 9
-    G_X = 15
-    gain = np.zeros((18, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rg1 = gain[G_GT + 1]
-    rg2 = gain[G_GT + 2]
-    rg3 = gain[G_GT + 3]
-    rg4 = gain[G_GT + 4]
-    rg5 = gain[G_GT + 5]
-    rg6 = gain[G_GT + 6]
-    rg7 = gain[G_GT + 7]
-    rg8 = gain[G_GT + 8]
-    rp0 = gain[G_PP + 0]
-    rp1 = gain[G_PP + 1]
-    rp2 = gain[G_PP + 2]
-    rp3 = gain[G_PP + 3]
-    rp4 = gain[G_PP + 4]
-    rp5 = gain[G_PP + 5]
-    rx0 = gain[G_X + 0]
-    rx1 = gain[G_X + 1]
-    rx2 = gain[G_X + 2]
-    re = scratch[ROW_E]
-    rh = scratch[ROW_DT]
-    sm0 = ms[n - 1, 0]
-    sm1 = ms[n - 1, 1]
-    sm2 = ms[n - 1, 2]
-    sp00 = Ps[n - 1, 0, 0]
-    sp01 = Ps[n - 1, 0, 1]
-    sp02 = Ps[n - 1, 0, 2]
-    sp11 = Ps[n - 1, 1, 1]
-    sp12 = Ps[n - 1, 1, 2]
-    sp22 = Ps[n - 1, 2, 2]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_decay(cnt, rate0, scratch)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            ve = vload(re, b)
-            vh = vload(rh, b)
-            va00 = vmul(ve, vfma(vh, vfma(vh, vc200, vc100), vc000))
-            va01 = vmul(ve, vfma(vh, vfma(vh, vc201, vc101), vc001))
-            va02 = vmul(ve, vfma(vh, vfma(vh, vc202, vc102), vc002))
-            va10 = vmul(ve, vfma(vh, vfma(vh, vc210, vc110), vc010))
-            va11 = vmul(ve, vfma(vh, vfma(vh, vc211, vc111), vc011))
-            va12 = vmul(ve, vfma(vh, vfma(vh, vc212, vc112), vc012))
-            va20 = vmul(ve, vfma(vh, vfma(vh, vc220, vc120), vc020))
-            va21 = vmul(ve, vfma(vh, vfma(vh, vc221, vc121), vc021))
-            va22 = vmul(ve, vfma(vh, vfma(vh, vc222, vc122), vc022))
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
-            vf02 = (Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2])
-            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
-            vf12 = (Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2])
-            vf22 = (Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-            vfm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-            vq00 = vsub(vf00, vpf00)
-            vq01 = vsub(vf01, vpf01)
-            vq02 = vsub(vf02, vpf02)
-            vq11 = vsub(vf11, vpf11)
-            vq12 = vsub(vf12, vpf12)
-            vq22 = vsub(vf22, vpf22)
-            vw00 = vfma(va00, vq00, vfma(va01, vq01, vmul(va02, vq02)))
-            vw01 = vfma(va00, vq01, vfma(va01, vq11, vmul(va02, vq12)))
-            vw02 = vfma(va00, vq02, vfma(va01, vq12, vmul(va02, vq22)))
-            vw10 = vfma(va10, vq00, vfma(va11, vq01, vmul(va12, vq02)))
-            vw11 = vfma(va10, vq01, vfma(va11, vq11, vmul(va12, vq12)))
-            vw12 = vfma(va10, vq02, vfma(va11, vq12, vmul(va12, vq22)))
-            vw20 = vfma(va20, vq00, vfma(va21, vq01, vmul(va22, vq02)))
-            vw21 = vfma(va20, vq01, vfma(va21, vq11, vmul(va22, vq12)))
-            vw22 = vfma(va20, vq02, vfma(va21, vq12, vmul(va22, vq22)))
-            vp00 = vfma(vw00, va00, vfma(vw01, va01, vfma(vw02, va02, vpf00)))
-            vp01 = vfma(vw00, va10, vfma(vw01, va11, vfma(vw02, va12, vpf01)))
-            vp02 = vfma(vw00, va20, vfma(vw01, va21, vfma(vw02, va22, vpf02)))
-            vp11 = vfma(vw10, va10, vfma(vw11, va11, vfma(vw12, va12, vpf11)))
-            vp12 = vfma(vw10, va20, vfma(vw11, va21, vfma(vw12, va22, vpf12)))
-            vp22 = vfma(vw20, va20, vfma(vw21, va21, vfma(vw22, va22, vpf22)))
-            vcc00 = vfma(va00, vf00, vfma(va01, vf01, vmul(va02, vf02)))
-            vcc01 = vfma(va00, vf01, vfma(va01, vf11, vmul(va02, vf12)))
-            vcc02 = vfma(va00, vf02, vfma(va01, vf12, vmul(va02, vf22)))
-            vcc10 = vfma(va10, vf00, vfma(va11, vf01, vmul(va12, vf02)))
-            vcc11 = vfma(va10, vf01, vfma(va11, vf11, vmul(va12, vf12)))
-            vcc12 = vfma(va10, vf02, vfma(va11, vf12, vmul(va12, vf22)))
-            vcc20 = vfma(va20, vf00, vfma(va21, vf01, vmul(va22, vf02)))
-            vcc21 = vfma(va20, vf01, vfma(va21, vf11, vmul(va22, vf12)))
-            vcc22 = vfma(va20, vf02, vfma(va21, vf12, vmul(va22, vf22)))
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vl10 = vmul(vp01, viv0)
-            vl20 = vmul(vp02, viv0)
-            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
-            viv1 = vrecip_pos(vdg1)
-            vl21 = vmul(vsub(vp12, vmul(vl20, vmul(vl10, vdg0))), viv1)
-            vdg2 = vsub(vp22, vfma(vl20, vmul(vl20, vdg0), vmul(vl21, vmul(vl21, vdg1))))
-            viv2 = vrecip_pos(vdg2)
-            vz0 = vcc00
-            vz1 = vsub(vcc10, vmul(vl10, vz0))
-            vz2 = vsub(vcc20, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg20 = vmul(vz2, viv2)
-            vg10 = vsub(vmul(vz1, viv1), vmul(vl21, vg20))
-            vg00 = vsub(vmul(vz0, viv0), vfma(vl10, vg10, vmul(vl20, vg20)))
-            vz0 = vcc01
-            vz1 = vsub(vcc11, vmul(vl10, vz0))
-            vz2 = vsub(vcc21, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg21 = vmul(vz2, viv2)
-            vg11 = vsub(vmul(vz1, viv1), vmul(vl21, vg21))
-            vg01 = vsub(vmul(vz0, viv0), vfma(vl10, vg11, vmul(vl20, vg21)))
-            vz0 = vcc02
-            vz1 = vsub(vcc12, vmul(vl10, vz0))
-            vz2 = vsub(vcc22, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg22 = vmul(vz2, viv2)
-            vg12 = vsub(vmul(vz1, viv1), vmul(vl21, vg22))
-            vg02 = vsub(vmul(vz0, viv0), vfma(vl10, vg12, vmul(vl20, vg22)))
-            vstore(rg0, b, vg00)
-            vstore(rg1, b, vg01)
-            vstore(rg2, b, vg02)
-            vstore(rg3, b, vg10)
-            vstore(rg4, b, vg11)
-            vstore(rg5, b, vg12)
-            vstore(rg6, b, vg20)
-            vstore(rg7, b, vg21)
-            vstore(rg8, b, vg22)
-            vstore(rp0, b, vp00)
-            vstore(rp1, b, vp01)
-            vstore(rp2, b, vp02)
-            vstore(rp3, b, vp11)
-            vstore(rp4, b, vp12)
-            vstore(rp5, b, vp22)
-            vstore(rx0, b, vfma(va00, vfm0, vfma(va01, vfm1, vmul(va02, vfm2))))
-            vstore(rx1, b, vfma(va10, vfm0, vfma(va11, vfm1, vmul(va12, vfm2))))
-            vstore(rx2, b, vfma(va20, vfm0, vfma(va21, vfm1, vmul(va22, vfm2))))
+        fill_decay(cnt, rate0, work)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
+            kk1 = obs[k, 3]
+            kk2 = obs[k, 4]
             if dtr[b] > 0.0:
-                fm0 = mf[k, 0]
-                fm1 = mf[k, 1]
-                fm2 = mf[k, 2]
-                gt00 = gain[G_GT + 0, b]
-                gt01 = gain[G_GT + 1, b]
-                gt02 = gain[G_GT + 2, b]
-                gt10 = gain[G_GT + 3, b]
-                gt11 = gain[G_GT + 4, b]
-                gt12 = gain[G_GT + 5, b]
-                gt20 = gain[G_GT + 6, b]
-                gt21 = gain[G_GT + 7, b]
-                gt22 = gain[G_GT + 8, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dd1 = sm1 - gain[G_X + 1, b]
-                dd2 = sm2 - gain[G_X + 2, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                dp01 = sp01 - gain[G_PP + 1, b]
-                dp02 = sp02 - gain[G_PP + 2, b]
-                dp11 = sp11 - gain[G_PP + 3, b]
-                dp12 = sp12 - gain[G_PP + 4, b]
-                dp22 = sp22 - gain[G_PP + 5, b]
-                sm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-                sm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-                sm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-                gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
-                gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
-                gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
-                gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
-                gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
-                gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
-                gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
-                gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
-                gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-                sp02 = Pf[k, 0, 2] + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-                sp12 = Pf[k, 1, 2] + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-                sp22 = Pf[k, 2, 2] + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            ms[k, 1] = sm1
-            ms[k, 2] = sm2
-            Ps[k, 0, 0] = sp00
-            Ps[k, 0, 1] = sp01
-            Ps[k, 1, 0] = sp01
-            Ps[k, 0, 2] = sp02
-            Ps[k, 2, 0] = sp02
-            Ps[k, 1, 1] = sp11
-            Ps[k, 1, 2] = sp12
-            Ps[k, 2, 1] = sp12
-            Ps[k, 2, 2] = sp22
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+            else:
+                a00 = 1.0
+                a01 = 0.0
+                a02 = 0.0
+                a10 = 0.0
+                a11 = 1.0
+                a12 = 0.0
+                a20 = 0.0
+                a21 = 0.0
+                a22 = 1.0
+            f00 = a00 - (a00 * kk0 + a01 * kk1 + a02 * kk2)
+            f01 = a01
+            f02 = a02
+            f10 = a10 - (a10 * kk0 + a11 * kk1 + a12 * kk2)
+            f11 = a11
+            f12 = a12
+            f20 = a20 - (a20 * kk0 + a21 * kk1 + a22 * kk2)
+            f21 = a21
+            f22 = a22
+            w00 = f00 * U00 + f10 * U01 + f20 * U02
+            w01 = f00 * U01 + f10 * U11 + f20 * U12
+            w02 = f00 * U02 + f10 * U12 + f20 * U22
+            w10 = f01 * U00 + f11 * U01 + f21 * U02
+            w11 = f01 * U01 + f11 * U11 + f21 * U12
+            w12 = f01 * U02 + f11 * U12 + f21 * U22
+            w20 = f02 * U00 + f12 * U01 + f22 * U02
+            w21 = f02 * U01 + f12 * U11 + f22 * U12
+            w22 = f02 * U02 + f12 * U12 + f22 * U22
+            V00 = inv + w00 * f00 + w01 * f10 + w02 * f20
+            V01 = w00 * f01 + w01 * f11 + w02 * f21
+            V02 = w00 * f02 + w01 * f12 + w02 * f22
+            V11 = w10 * f01 + w11 * f11 + w12 * f21
+            V12 = w10 * f02 + w11 * f12 + w12 * f22
+            V22 = w20 * f02 + w21 * f12 + w22 * f22
+            x0 = g + f00 * u0 + f10 * u1 + f20 * u2
+            x1 = f01 * u0 + f11 * u1 + f21 * u2
+            x2 = f02 * u0 + f12 * u1 + f22 * u2
+            u0 = x0
+            lam[k, 0] = u0
+            u1 = x1
+            lam[k, 1] = u1
+            u2 = x2
+            lam[k, 2] = u2
+            U00 = V00
+            Lam[k, 0, 0] = U00
+            U01 = V01
+            Lam[k, 0, 1] = U01
+            Lam[k, 1, 0] = U01
+            U02 = V02
+            Lam[k, 0, 2] = U02
+            Lam[k, 2, 0] = U02
+            U11 = V11
+            Lam[k, 1, 1] = U11
+            U12 = V12
+            Lam[k, 1, 2] = U12
+            Lam[k, 2, 1] = U12
+            U22 = V22
+            Lam[k, 2, 2] = U22
         end = begin
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 1; as ``kalman.smooth``.
+def adjoint_d1_multi(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 1.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
-    sm0 = ms[n - 1, 0]
-    sp00 = Ps[n - 1, 0, 0]
+    u0 = lam[n - 1, 0]
+    U00 = Lam[n - 1, 0, 0]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2718,50 +3139,39 @@ def smooth_d1_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
             if dtr[b] > 0.0:
                 a00 = work[ROW_A + 0, b]
-                fm0 = mf[k, 0]
-                f00 = Pf[k, 0, 0]
-                qq00 = f00 - pf00
-                w00 = a00 * qq00
-                pp00 = w00 * a00
-                pp00 += pf00
-                cc00 = a00 * f00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = cc00
-                gt00 = z0 * iv0
-                dd0 = sm0 - (a00 * fm0)
-                nm0 = fm0 + gt00 * dd0
-                dp00 = sp00 - pp00
-                gd00 = gt00 * dp00
-                np00 = f00 + gd00 * gt00
-                sm0 = nm0
-                sp00 = np00
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            Ps[k, 0, 0] = sp00
+            else:
+                a00 = 1.0
+            f00 = a00 - (a00 * kk0)
+            w00 = f00 * U00
+            V00 = inv + w00 * f00
+            x0 = g + f00 * u0
+            u0 = x0
+            lam[k, 0] = u0
+            U00 = V00
+            Lam[k, 0, 0] = U00
         end = begin
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 2; as ``kalman.smooth``.
+def adjoint_d2_multi(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 2.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
-    sm0 = ms[n - 1, 0]
-    sm1 = ms[n - 1, 1]
-    sp00 = Ps[n - 1, 0, 0]
-    sp01 = Ps[n - 1, 0, 1]
-    sp11 = Ps[n - 1, 1, 1]
+    u0 = lam[n - 1, 0]
+    u1 = lam[n - 1, 1]
+    U00 = Lam[n - 1, 0, 0]
+    U01 = Lam[n - 1, 0, 1]
+    U11 = Lam[n - 1, 1, 1]
     block = work.shape[1]
     dtr = work[ROW_DT]
     end = n - 1
@@ -2773,326 +3183,170 @@ def smooth_d2_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
         fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
+            kk1 = obs[k, 3]
             if dtr[b] > 0.0:
                 a00 = work[ROW_A + 0, b]
                 a01 = work[ROW_A + 1, b]
                 a10 = work[ROW_A + 2, b]
                 a11 = work[ROW_A + 3, b]
-                fm0 = mf[k, 0]
-                fm1 = mf[k, 1]
-                f00 = Pf[k, 0, 0]
-                f01 = Pf[k, 0, 1]
-                f11 = Pf[k, 1, 1]
-                qq00 = f00 - pf00
-                qq01 = f01 - pf01
-                qq11 = f11 - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                pp00 = w00 * a00 + w01 * a01
-                pp01 = w00 * a10 + w01 * a11
-                pp11 = w10 * a10 + w11 * a11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                cc00 = a00 * f00 + a01 * f01
-                cc01 = a00 * f01 + a01 * f11
-                cc10 = a10 * f00 + a11 * f01
-                cc11 = a10 * f01 + a11 * f11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = cc00
-                z1 = cc10 - l10 * z0
-                gt10 = z1 * iv1
-                gt00 = z0 * iv0 - l10 * gt10
-                z0 = cc01
-                z1 = cc11 - l10 * z0
-                gt11 = z1 * iv1
-                gt01 = z0 * iv0 - l10 * gt11
-                dd0 = sm0 - (a00 * fm0 + a01 * fm1)
-                dd1 = sm1 - (a10 * fm0 + a11 * fm1)
-                nm0 = fm0 + gt00 * dd0 + gt10 * dd1
-                nm1 = fm1 + gt01 * dd0 + gt11 * dd1
-                dp00 = sp00 - pp00
-                dp01 = sp01 - pp01
-                dp11 = sp11 - pp11
-                gd00 = gt00 * dp00 + gt10 * dp01
-                gd01 = gt00 * dp01 + gt10 * dp11
-                gd10 = gt01 * dp00 + gt11 * dp01
-                gd11 = gt01 * dp01 + gt11 * dp11
-                np00 = f00 + gd00 * gt00 + gd01 * gt10
-                np01 = f01 + gd00 * gt01 + gd01 * gt11
-                np11 = f11 + gd10 * gt01 + gd11 * gt11
-                sm0 = nm0
-                sm1 = nm1
-                sp00 = np00
-                sp01 = np01
-                sp11 = np11
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            ms[k, 1] = sm1
-            Ps[k, 0, 0] = sp00
-            Ps[k, 0, 1] = sp01
-            Ps[k, 1, 0] = sp01
-            Ps[k, 1, 1] = sp11
+            else:
+                a00 = 1.0
+                a01 = 0.0
+                a10 = 0.0
+                a11 = 1.0
+            f00 = a00 - (a00 * kk0 + a01 * kk1)
+            f01 = a01
+            f10 = a10 - (a10 * kk0 + a11 * kk1)
+            f11 = a11
+            w00 = f00 * U00 + f10 * U01
+            w01 = f00 * U01 + f10 * U11
+            w10 = f01 * U00 + f11 * U01
+            w11 = f01 * U01 + f11 * U11
+            V00 = inv + w00 * f00 + w01 * f10
+            V01 = w00 * f01 + w01 * f11
+            V11 = w10 * f01 + w11 * f11
+            x0 = g + f00 * u0 + f10 * u1
+            x1 = f01 * u0 + f11 * u1
+            u0 = x0
+            lam[k, 0] = u0
+            u1 = x1
+            lam[k, 1] = u1
+            U00 = V00
+            Lam[k, 0, 0] = U00
+            U01 = V01
+            Lam[k, 0, 1] = U01
+            Lam[k, 1, 0] = U01
+            U11 = V11
+            Lam[k, 1, 1] = U11
         end = begin
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def smooth_d3_multi(t, pinf, trans, work, mf, Pf, ms, Ps):
-    """RTS smoother over stored filter output, d = 3; as ``kalman.smooth``.
+def adjoint_d3_multi(t, pinf, trans, work, obs, lam, Lam):
+    """Adjoint smoother over a window of stored filter output, d = 3.
 
-    Unlike ``kalman.smooth``, the recursion starts from whatever ``ms[n - 1]``
-    and ``Ps[n - 1]`` hold on entry (the smoothed state at the last time: the
-    filtered one for a whole series, a checkpoint for a block of it). The
-    smoothed state is carried in scalars; rows ``0 .. n - 2`` are only written.
-
-    Per block of ``work.shape[1]`` steps, first the gains of every step, four
-    steps at a time in vector lanes (they do not depend on the recursion),
-    then the backward recursion reading them. Only the width of ``work`` is
-    used: the smoother keeps transitions and gains in its own scratch, padded
-    to whole groups of four, so every step takes the same lane arithmetic
-    whatever the block boundaries (a lean posterior's blocks then reproduce
-    a whole pass exactly).
+    Starts from whatever ``lam[n - 1]``, ``Lam[n - 1]`` hold on entry (the
+    adjoint at the window's last time: that of its own observation for a
+    whole series, a checkpoint for a block of it) and writes rows
+    ``0 .. n - 2``; ``Lam`` is written whole (both triangles).
     """
     n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
-    vpf00 = vsplat(pf00)
-    vpf01 = vsplat(pf01)
-    vpf02 = vsplat(pf02)
-    vpf11 = vsplat(pf11)
-    vpf12 = vsplat(pf12)
-    vpf22 = vsplat(pf22)
+    u0 = lam[n - 1, 0]
+    u1 = lam[n - 1, 1]
+    u2 = lam[n - 1, 2]
+    U00 = Lam[n - 1, 0, 0]
+    U01 = Lam[n - 1, 0, 1]
+    U02 = Lam[n - 1, 0, 2]
+    U11 = Lam[n - 1, 1, 1]
+    U12 = Lam[n - 1, 1, 2]
+    U22 = Lam[n - 1, 2, 2]
     block = work.shape[1]
-    width = (block + 3) // 4 * 4
-    scratch = np.zeros((ROW_A + 9, width))
-    dtr = scratch[ROW_DT]
-    G_GT = 0
-    G_PP = 9
-    G_X = 15
-    gain = np.zeros((18, width))
-    # row views once, outside the loops (a view per step costs reference counts)
-    rg0 = gain[G_GT + 0]
-    rg1 = gain[G_GT + 1]
-    rg2 = gain[G_GT + 2]
-    rg3 = gain[G_GT + 3]
-    rg4 = gain[G_GT + 4]
-    rg5 = gain[G_GT + 5]
-    rg6 = gain[G_GT + 6]
-    rg7 = gain[G_GT + 7]
-    rg8 = gain[G_GT + 8]
-    rp0 = gain[G_PP + 0]
-    rp1 = gain[G_PP + 1]
-    rp2 = gain[G_PP + 2]
-    rp3 = gain[G_PP + 3]
-    rp4 = gain[G_PP + 4]
-    rp5 = gain[G_PP + 5]
-    rx0 = gain[G_X + 0]
-    rx1 = gain[G_X + 1]
-    rx2 = gain[G_X + 2]
-    ra0 = scratch[ROW_A + 0]
-    ra1 = scratch[ROW_A + 1]
-    ra2 = scratch[ROW_A + 2]
-    ra3 = scratch[ROW_A + 3]
-    ra4 = scratch[ROW_A + 4]
-    ra5 = scratch[ROW_A + 5]
-    ra6 = scratch[ROW_A + 6]
-    ra7 = scratch[ROW_A + 7]
-    ra8 = scratch[ROW_A + 8]
-    sm0 = ms[n - 1, 0]
-    sm1 = ms[n - 1, 1]
-    sm2 = ms[n - 1, 2]
-    sp00 = Ps[n - 1, 0, 0]
-    sp01 = Ps[n - 1, 0, 1]
-    sp02 = Ps[n - 1, 0, 2]
-    sp11 = Ps[n - 1, 1, 1]
-    sp12 = Ps[n - 1, 1, 2]
-    sp22 = Ps[n - 1, 2, 2]
+    dtr = work[ROW_DT]
     end = n - 1
     while end > 0:
         begin = max(0, end - block)
         cnt = end - begin
-        last = end - 1
         # dtr[b] = t[begin + b + 1] - t[begin + b]
         step_sizes(t, begin + 1, cnt, dtr)
-        fill_transition(cnt, trans, scratch, ROW_A)
-        for b in range(0, cnt, 4):
-            k0 = begin + b
-            k1 = min(k0 + 1, last)
-            k2 = min(k0 + 2, last)
-            k3 = min(k0 + 3, last)
-            va00 = vload(ra0, b)
-            va01 = vload(ra1, b)
-            va02 = vload(ra2, b)
-            va10 = vload(ra3, b)
-            va11 = vload(ra4, b)
-            va12 = vload(ra5, b)
-            va20 = vload(ra6, b)
-            va21 = vload(ra7, b)
-            va22 = vload(ra8, b)
-            vf00 = (Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0])
-            vf01 = (Pf[k0, 0, 1], Pf[k1, 0, 1], Pf[k2, 0, 1], Pf[k3, 0, 1])
-            vf02 = (Pf[k0, 0, 2], Pf[k1, 0, 2], Pf[k2, 0, 2], Pf[k3, 0, 2])
-            vf11 = (Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1])
-            vf12 = (Pf[k0, 1, 2], Pf[k1, 1, 2], Pf[k2, 1, 2], Pf[k3, 1, 2])
-            vf22 = (Pf[k0, 2, 2], Pf[k1, 2, 2], Pf[k2, 2, 2], Pf[k3, 2, 2])
-            vfm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-            vfm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-            vfm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-            vq00 = vsub(vf00, vpf00)
-            vq01 = vsub(vf01, vpf01)
-            vq02 = vsub(vf02, vpf02)
-            vq11 = vsub(vf11, vpf11)
-            vq12 = vsub(vf12, vpf12)
-            vq22 = vsub(vf22, vpf22)
-            vw00 = vfma(va00, vq00, vfma(va01, vq01, vmul(va02, vq02)))
-            vw01 = vfma(va00, vq01, vfma(va01, vq11, vmul(va02, vq12)))
-            vw02 = vfma(va00, vq02, vfma(va01, vq12, vmul(va02, vq22)))
-            vw10 = vfma(va10, vq00, vfma(va11, vq01, vmul(va12, vq02)))
-            vw11 = vfma(va10, vq01, vfma(va11, vq11, vmul(va12, vq12)))
-            vw12 = vfma(va10, vq02, vfma(va11, vq12, vmul(va12, vq22)))
-            vw20 = vfma(va20, vq00, vfma(va21, vq01, vmul(va22, vq02)))
-            vw21 = vfma(va20, vq01, vfma(va21, vq11, vmul(va22, vq12)))
-            vw22 = vfma(va20, vq02, vfma(va21, vq12, vmul(va22, vq22)))
-            vp00 = vfma(vw00, va00, vfma(vw01, va01, vfma(vw02, va02, vpf00)))
-            vp01 = vfma(vw00, va10, vfma(vw01, va11, vfma(vw02, va12, vpf01)))
-            vp02 = vfma(vw00, va20, vfma(vw01, va21, vfma(vw02, va22, vpf02)))
-            vp11 = vfma(vw10, va10, vfma(vw11, va11, vfma(vw12, va12, vpf11)))
-            vp12 = vfma(vw10, va20, vfma(vw11, va21, vfma(vw12, va22, vpf12)))
-            vp22 = vfma(vw20, va20, vfma(vw21, va21, vfma(vw22, va22, vpf22)))
-            vcc00 = vfma(va00, vf00, vfma(va01, vf01, vmul(va02, vf02)))
-            vcc01 = vfma(va00, vf01, vfma(va01, vf11, vmul(va02, vf12)))
-            vcc02 = vfma(va00, vf02, vfma(va01, vf12, vmul(va02, vf22)))
-            vcc10 = vfma(va10, vf00, vfma(va11, vf01, vmul(va12, vf02)))
-            vcc11 = vfma(va10, vf01, vfma(va11, vf11, vmul(va12, vf12)))
-            vcc12 = vfma(va10, vf02, vfma(va11, vf12, vmul(va12, vf22)))
-            vcc20 = vfma(va20, vf00, vfma(va21, vf01, vmul(va22, vf02)))
-            vcc21 = vfma(va20, vf01, vfma(va21, vf11, vmul(va22, vf12)))
-            vcc22 = vfma(va20, vf02, vfma(va21, vf12, vmul(va22, vf22)))
-            vdg0 = vp00
-            viv0 = vrecip_pos(vdg0)
-            vl10 = vmul(vp01, viv0)
-            vl20 = vmul(vp02, viv0)
-            vdg1 = vsub(vp11, vmul(vl10, vmul(vl10, vdg0)))
-            viv1 = vrecip_pos(vdg1)
-            vl21 = vmul(vsub(vp12, vmul(vl20, vmul(vl10, vdg0))), viv1)
-            vdg2 = vsub(vp22, vfma(vl20, vmul(vl20, vdg0), vmul(vl21, vmul(vl21, vdg1))))
-            viv2 = vrecip_pos(vdg2)
-            vz0 = vcc00
-            vz1 = vsub(vcc10, vmul(vl10, vz0))
-            vz2 = vsub(vcc20, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg20 = vmul(vz2, viv2)
-            vg10 = vsub(vmul(vz1, viv1), vmul(vl21, vg20))
-            vg00 = vsub(vmul(vz0, viv0), vfma(vl10, vg10, vmul(vl20, vg20)))
-            vz0 = vcc01
-            vz1 = vsub(vcc11, vmul(vl10, vz0))
-            vz2 = vsub(vcc21, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg21 = vmul(vz2, viv2)
-            vg11 = vsub(vmul(vz1, viv1), vmul(vl21, vg21))
-            vg01 = vsub(vmul(vz0, viv0), vfma(vl10, vg11, vmul(vl20, vg21)))
-            vz0 = vcc02
-            vz1 = vsub(vcc12, vmul(vl10, vz0))
-            vz2 = vsub(vcc22, vfma(vl20, vz0, vmul(vl21, vz1)))
-            vg22 = vmul(vz2, viv2)
-            vg12 = vsub(vmul(vz1, viv1), vmul(vl21, vg22))
-            vg02 = vsub(vmul(vz0, viv0), vfma(vl10, vg12, vmul(vl20, vg22)))
-            vstore(rg0, b, vg00)
-            vstore(rg1, b, vg01)
-            vstore(rg2, b, vg02)
-            vstore(rg3, b, vg10)
-            vstore(rg4, b, vg11)
-            vstore(rg5, b, vg12)
-            vstore(rg6, b, vg20)
-            vstore(rg7, b, vg21)
-            vstore(rg8, b, vg22)
-            vstore(rp0, b, vp00)
-            vstore(rp1, b, vp01)
-            vstore(rp2, b, vp02)
-            vstore(rp3, b, vp11)
-            vstore(rp4, b, vp12)
-            vstore(rp5, b, vp22)
-            vstore(rx0, b, vfma(va00, vfm0, vfma(va01, vfm1, vmul(va02, vfm2))))
-            vstore(rx1, b, vfma(va10, vfm0, vfma(va11, vfm1, vmul(va12, vfm2))))
-            vstore(rx2, b, vfma(va20, vfm0, vfma(va21, vfm1, vmul(va22, vfm2))))
+        fill_transition(cnt, trans, work, ROW_A)
         for b in range(cnt - 1, -1, -1):
             k = begin + b
+            g = obs[k, 0]
+            inv = obs[k, 1]
+            kk0 = obs[k, 2]
+            kk1 = obs[k, 3]
+            kk2 = obs[k, 4]
             if dtr[b] > 0.0:
-                fm0 = mf[k, 0]
-                fm1 = mf[k, 1]
-                fm2 = mf[k, 2]
-                gt00 = gain[G_GT + 0, b]
-                gt01 = gain[G_GT + 1, b]
-                gt02 = gain[G_GT + 2, b]
-                gt10 = gain[G_GT + 3, b]
-                gt11 = gain[G_GT + 4, b]
-                gt12 = gain[G_GT + 5, b]
-                gt20 = gain[G_GT + 6, b]
-                gt21 = gain[G_GT + 7, b]
-                gt22 = gain[G_GT + 8, b]
-                dd0 = sm0 - gain[G_X + 0, b]
-                dd1 = sm1 - gain[G_X + 1, b]
-                dd2 = sm2 - gain[G_X + 2, b]
-                dp00 = sp00 - gain[G_PP + 0, b]
-                dp01 = sp01 - gain[G_PP + 1, b]
-                dp02 = sp02 - gain[G_PP + 2, b]
-                dp11 = sp11 - gain[G_PP + 3, b]
-                dp12 = sp12 - gain[G_PP + 4, b]
-                dp22 = sp22 - gain[G_PP + 5, b]
-                sm0 = fm0 + gt00 * dd0 + gt10 * dd1 + gt20 * dd2
-                sm1 = fm1 + gt01 * dd0 + gt11 * dd1 + gt21 * dd2
-                sm2 = fm2 + gt02 * dd0 + gt12 * dd1 + gt22 * dd2
-                gd00 = gt00 * dp00 + gt10 * dp01 + gt20 * dp02
-                gd01 = gt00 * dp01 + gt10 * dp11 + gt20 * dp12
-                gd02 = gt00 * dp02 + gt10 * dp12 + gt20 * dp22
-                gd10 = gt01 * dp00 + gt11 * dp01 + gt21 * dp02
-                gd11 = gt01 * dp01 + gt11 * dp11 + gt21 * dp12
-                gd12 = gt01 * dp02 + gt11 * dp12 + gt21 * dp22
-                gd20 = gt02 * dp00 + gt12 * dp01 + gt22 * dp02
-                gd21 = gt02 * dp01 + gt12 * dp11 + gt22 * dp12
-                gd22 = gt02 * dp02 + gt12 * dp12 + gt22 * dp22
-                sp00 = Pf[k, 0, 0] + gd00 * gt00 + gd01 * gt10 + gd02 * gt20
-                sp01 = Pf[k, 0, 1] + gd00 * gt01 + gd01 * gt11 + gd02 * gt21
-                sp02 = Pf[k, 0, 2] + gd00 * gt02 + gd01 * gt12 + gd02 * gt22
-                sp11 = Pf[k, 1, 1] + gd10 * gt01 + gd11 * gt11 + gd12 * gt21
-                sp12 = Pf[k, 1, 2] + gd10 * gt02 + gd11 * gt12 + gd12 * gt22
-                sp22 = Pf[k, 2, 2] + gd20 * gt02 + gd21 * gt12 + gd22 * gt22
-            # (a repeated time keeps the state: one state, conditioned on every copy)
-            ms[k, 0] = sm0
-            ms[k, 1] = sm1
-            ms[k, 2] = sm2
-            Ps[k, 0, 0] = sp00
-            Ps[k, 0, 1] = sp01
-            Ps[k, 1, 0] = sp01
-            Ps[k, 0, 2] = sp02
-            Ps[k, 2, 0] = sp02
-            Ps[k, 1, 1] = sp11
-            Ps[k, 1, 2] = sp12
-            Ps[k, 2, 1] = sp12
-            Ps[k, 2, 2] = sp22
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+            else:
+                a00 = 1.0
+                a01 = 0.0
+                a02 = 0.0
+                a10 = 0.0
+                a11 = 1.0
+                a12 = 0.0
+                a20 = 0.0
+                a21 = 0.0
+                a22 = 1.0
+            f00 = a00 - (a00 * kk0 + a01 * kk1 + a02 * kk2)
+            f01 = a01
+            f02 = a02
+            f10 = a10 - (a10 * kk0 + a11 * kk1 + a12 * kk2)
+            f11 = a11
+            f12 = a12
+            f20 = a20 - (a20 * kk0 + a21 * kk1 + a22 * kk2)
+            f21 = a21
+            f22 = a22
+            w00 = f00 * U00 + f10 * U01 + f20 * U02
+            w01 = f00 * U01 + f10 * U11 + f20 * U12
+            w02 = f00 * U02 + f10 * U12 + f20 * U22
+            w10 = f01 * U00 + f11 * U01 + f21 * U02
+            w11 = f01 * U01 + f11 * U11 + f21 * U12
+            w12 = f01 * U02 + f11 * U12 + f21 * U22
+            w20 = f02 * U00 + f12 * U01 + f22 * U02
+            w21 = f02 * U01 + f12 * U11 + f22 * U12
+            w22 = f02 * U02 + f12 * U12 + f22 * U22
+            V00 = inv + w00 * f00 + w01 * f10 + w02 * f20
+            V01 = w00 * f01 + w01 * f11 + w02 * f21
+            V02 = w00 * f02 + w01 * f12 + w02 * f22
+            V11 = w10 * f01 + w11 * f11 + w12 * f21
+            V12 = w10 * f02 + w11 * f12 + w12 * f22
+            V22 = w20 * f02 + w21 * f12 + w22 * f22
+            x0 = g + f00 * u0 + f10 * u1 + f20 * u2
+            x1 = f01 * u0 + f11 * u1 + f21 * u2
+            x2 = f02 * u0 + f12 * u1 + f22 * u2
+            u0 = x0
+            lam[k, 0] = u0
+            u1 = x1
+            lam[k, 1] = u1
+            u2 = x2
+            lam[k, 2] = u2
+            U00 = V00
+            Lam[k, 0, 0] = U00
+            U01 = V01
+            Lam[k, 0, 1] = U01
+            Lam[k, 1, 0] = U01
+            U02 = V02
+            Lam[k, 0, 2] = U02
+            Lam[k, 2, 0] = U02
+            U11 = V11
+            Lam[k, 1, 1] = U11
+            U12 = V12
+            Lam[k, 1, 2] = U12
+            Lam[k, 2, 1] = U12
+            U22 = V22
+            Lam[k, 2, 2] = U22
         end = begin
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d1_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -3133,78 +3387,64 @@ def predict_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                     a00 = vmul(e1, vc000)
                     qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-                    w00 = vmul(a00, qq00)
-                    sp00 = vfma(w00, a00, vpf00)
-                    sm0 = vmul(a00, fm0)
+                    w0 = vmul(qq00, a00)
+                    p0 = vfma(a00, w0, vpf00)
+                    mq = vmul(a00, fm0)
                     e00 = vmul(e2, vc000)
-                    qq00 = vsub(sp00, vpf00)
-                    w00 = vmul(e00, qq00)
-                    pp00 = vfma(w00, e00, vpf00)
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    z0 = vmul(e00, sp00)
-                    g0 = vmul(z0, iv0)
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
-                    vmean = vfma(g0, dd0, sm0)
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    y0 = vmul(dp00, g0)
-                    vvar = vfma(g0, y0, sp00)
+                    cc0 = vmul(e00, p0)
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    vmean = vfma(cc0, u0, mq)
+                    y0 = vmul(U00, cc0)
+                    vvar = vsub(p0, vmul(cc0, y0))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sp00 = pf00
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                a00 = ee * (c000)
-                qq00 = src_P[k, 0, 0] - pf00
-                w00 = a00 * qq00
-                sp00 = w00 * a00
-                sp00 += pf00
-                sm0 = a00 * src_m[k, 0]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            a00 = ee * (c000)
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                fm0 = mf[k, 0]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                fm0 = 0.0
+            w0 = qq00 * a00
+            p0 = pf00 + a00 * w0
+            mq = a00 * fm0
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 e00 = ee * (c000)
-                qq00 = sp00 - pf00
-                w00 = e00 * qq00
-                pp00 = w00 * e00
-                pp00 += pf00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = e00 * sp00
-                gg00 = z0 * iv0
-                dd0 = ms[k + 1, 0] - (e00 * sm0)
-                mean += gg00 * dd0
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                y0 = dp00 * gg00
-                var += gg00 * y0
+                cc0 = e00 * p0
+                mean += cc0 * lam[k + 1, 0]
+                y0 = Lam[k + 1, 0, 0] * cc0
+                var -= cc0 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d2_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -3273,87 +3513,57 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                     qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-                    w00 = vfma(a00, qq00, vmul(a01, qq01))
-                    w01 = vfma(a00, qq01, vmul(a01, qq11))
-                    w10 = vfma(a10, qq00, vmul(a11, qq01))
-                    w11 = vfma(a10, qq01, vmul(a11, qq11))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
-                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
-                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    w0 = vfma(qq00, a00, vmul(qq01, a01))
+                    w1 = vfma(qq01, a00, vmul(qq11, a01))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vpf00))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vpf01))
+                    mq = vfma(a00, fm0, vmul(a01, fm1))
                     e00 = vmul(e2, vfma(h2, vc100, vc000))
                     e01 = vmul(e2, vfma(h2, vc101, vc001))
                     e10 = vmul(e2, vfma(h2, vc110, vc010))
                     e11 = vmul(e2, vfma(h2, vc111, vc011))
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq11 = vsub(sp11, vpf11)
-                    w00 = vfma(e00, qq00, vmul(e01, qq01))
-                    w01 = vfma(e00, qq01, vmul(e01, qq11))
-                    w10 = vfma(e10, qq00, vmul(e11, qq01))
-                    w11 = vfma(e10, qq01, vmul(e11, qq11))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    z0 = vfma(e00, sp00, vmul(e01, sp01))
-                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
-                    g1 = vmul(z1, iv1)
-                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    y0 = vfma(dp00, g0, vmul(dp01, g1))
-                    y1 = vfma(dp01, g0, vmul(dp11, g1))
-                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    cc0 = vfma(e00, p0, vmul(e01, p1))
+                    cc1 = vfma(e10, p0, vmul(e11, p1))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, mq))
+                    y0 = vfma(U00, cc0, vmul(U01, cc1))
+                    y1 = vfma(U01, cc0, vmul(U11, cc1))
+                    vvar = vsub(p0, vfma(cc0, y0, vmul(cc1, y1)))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp11 = pf11
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                hh = work[ROW_A, b]
-                a00 = ee * (c000 + hh * c100)
-                a01 = ee * (c001 + hh * c101)
-                a10 = ee * (c010 + hh * c110)
-                a11 = ee * (c011 + hh * c111)
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq11 = src_P[k, 1, 1] - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                sp00 = w00 * a00 + w01 * a01
-                sp01 = w00 * a10 + w01 * a11
-                sp11 = w10 * a10 + w11 * a11
-                sp00 += pf00
-                sp01 += pf01
-                sp11 += pf11
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            hh = work[ROW_A, b]
+            a00 = ee * (c000 + hh * c100)
+            a01 = ee * (c001 + hh * c101)
+            a10 = ee * (c010 + hh * c110)
+            a11 = ee * (c011 + hh * c111)
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq11 = Pf[k, 1, 1] - pf11
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq11 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+            w0 = qq00 * a00 + qq01 * a01
+            w1 = qq01 * a00 + qq11 * a01
+            p0 = pf00 + a00 * w0 + a01 * w1
+            p1 = pf01 + a10 * w0 + a11 * w1
+            mq = a00 * fm0 + a01 * fm1
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 hh = work[ROW_DT, b]
@@ -3361,54 +3571,34 @@ def predict_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 e01 = ee * (c001 + hh * c101)
                 e10 = ee * (c010 + hh * c110)
                 e11 = ee * (c011 + hh * c111)
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq11 = sp11 - pf11
-                w00 = e00 * qq00 + e01 * qq01
-                w01 = e00 * qq01 + e01 * qq11
-                w10 = e10 * qq00 + e11 * qq01
-                w11 = e10 * qq01 + e11 * qq11
-                pp00 = w00 * e00 + w01 * e01
-                pp01 = w00 * e10 + w01 * e11
-                pp11 = w10 * e10 + w11 * e11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01
-                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
-                gg10 = z1 * iv1
-                gg00 = z0 * iv0 - l10 * gg10
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
-                mean += gg00 * dd0 + gg10 * dd1
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                y0 = dp00 * gg00 + dp01 * gg10
-                y1 = dp01 * gg00 + dp11 * gg10
-                var += gg00 * y0 + gg10 * y1
+                cc0 = e00 * p0 + e01 * p1
+                cc1 = e10 * p0 + e11 * p1
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1
+                var -= cc0 * y0 + cc1 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d3_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -3530,24 +3720,13 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
                     fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
-                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
-                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
-                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
-                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
-                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
-                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
-                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
-                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
-                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
-                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
-                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
-                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
-                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
-                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    w0 = vfma(qq00, a00, vfma(qq01, a01, vmul(qq02, a02)))
+                    w1 = vfma(qq01, a00, vfma(qq11, a01, vmul(qq12, a02)))
+                    w2 = vfma(qq02, a00, vfma(qq12, a01, vmul(qq22, a02)))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vfma(a02, w2, vpf00)))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vfma(a12, w2, vpf01)))
+                    p2 = vfma(a20, w0, vfma(a21, w1, vfma(a22, w2, vpf02)))
+                    mq = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
                     e00 = vmul(e2, vfma(h2, vfma(h2, vc200, vc100), vc000))
                     e01 = vmul(e2, vfma(h2, vfma(h2, vc201, vc101), vc001))
                     e02 = vmul(e2, vfma(h2, vfma(h2, vc202, vc102), vc002))
@@ -3557,120 +3736,69 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                     e20 = vmul(e2, vfma(h2, vfma(h2, vc220, vc120), vc020))
                     e21 = vmul(e2, vfma(h2, vfma(h2, vc221, vc121), vc021))
                     e22 = vmul(e2, vfma(h2, vfma(h2, vc222, vc122), vc022))
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq02 = vsub(sp02, vpf02)
-                    qq11 = vsub(sp11, vpf11)
-                    qq12 = vsub(sp12, vpf12)
-                    qq22 = vsub(sp22, vpf22)
-                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
-                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
-                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
-                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
-                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
-                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
-                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
-                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
-                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
-                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
-                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
-                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    l20 = vmul(pp02, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
-                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
-                    iv2 = vrecip_pos(dg2)
-                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
-                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
-                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
-                    g2 = vmul(z2, iv2)
-                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
-                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
-                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
-                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
-                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
-                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
-                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
-                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    cc0 = vfma(e00, p0, vfma(e01, p1, vmul(e02, p2)))
+                    cc1 = vfma(e10, p0, vfma(e11, p1, vmul(e12, p2)))
+                    cc2 = vfma(e20, p0, vfma(e21, p1, vmul(e22, p2)))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    u2 = (lam[k0 + 1, 2], lam[k1 + 1, 2], lam[k2 + 1, 2], lam[k3 + 1, 2])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U02 = (Lam[k0 + 1, 0, 2], Lam[k1 + 1, 0, 2], Lam[k2 + 1, 0, 2], Lam[k3 + 1, 0, 2])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    U12 = (Lam[k0 + 1, 1, 2], Lam[k1 + 1, 1, 2], Lam[k2 + 1, 1, 2], Lam[k3 + 1, 1, 2])
+                    U22 = (Lam[k0 + 1, 2, 2], Lam[k1 + 1, 2, 2], Lam[k2 + 1, 2, 2], Lam[k3 + 1, 2, 2])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, vfma(cc2, u2, mq)))
+                    y0 = vfma(U00, cc0, vfma(U01, cc1, vmul(U02, cc2)))
+                    y1 = vfma(U01, cc0, vfma(U11, cc1, vmul(U12, cc2)))
+                    y2 = vfma(U02, cc0, vfma(U12, cc1, vmul(U22, cc2)))
+                    vvar = vsub(p0, vfma(cc0, y0, vfma(cc1, y1, vmul(cc2, y2))))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sm2 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp02 = pf02
-                sp11 = pf11
-                sp12 = pf12
-                sp22 = pf22
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                hh = work[ROW_A, b]
-                a00 = ee * (c000 + hh * (c100 + hh * c200))
-                a01 = ee * (c001 + hh * (c101 + hh * c201))
-                a02 = ee * (c002 + hh * (c102 + hh * c202))
-                a10 = ee * (c010 + hh * (c110 + hh * c210))
-                a11 = ee * (c011 + hh * (c111 + hh * c211))
-                a12 = ee * (c012 + hh * (c112 + hh * c212))
-                a20 = ee * (c020 + hh * (c120 + hh * c220))
-                a21 = ee * (c021 + hh * (c121 + hh * c221))
-                a22 = ee * (c022 + hh * (c122 + hh * c222))
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq02 = src_P[k, 0, 2] - pf02
-                qq11 = src_P[k, 1, 1] - pf11
-                qq12 = src_P[k, 1, 2] - pf12
-                qq22 = src_P[k, 2, 2] - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                sp00 = w00 * a00 + w01 * a01 + w02 * a02
-                sp01 = w00 * a10 + w01 * a11 + w02 * a12
-                sp02 = w00 * a20 + w01 * a21 + w02 * a22
-                sp11 = w10 * a10 + w11 * a11 + w12 * a12
-                sp12 = w10 * a20 + w11 * a21 + w12 * a22
-                sp22 = w20 * a20 + w21 * a21 + w22 * a22
-                sp00 += pf00
-                sp01 += pf01
-                sp02 += pf02
-                sp11 += pf11
-                sp12 += pf12
-                sp22 += pf22
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
-                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            hh = work[ROW_A, b]
+            a00 = ee * (c000 + hh * (c100 + hh * c200))
+            a01 = ee * (c001 + hh * (c101 + hh * c201))
+            a02 = ee * (c002 + hh * (c102 + hh * c202))
+            a10 = ee * (c010 + hh * (c110 + hh * c210))
+            a11 = ee * (c011 + hh * (c111 + hh * c211))
+            a12 = ee * (c012 + hh * (c112 + hh * c212))
+            a20 = ee * (c020 + hh * (c120 + hh * c220))
+            a21 = ee * (c021 + hh * (c121 + hh * c221))
+            a22 = ee * (c022 + hh * (c122 + hh * c222))
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq02 = Pf[k, 0, 2] - pf02
+                qq11 = Pf[k, 1, 1] - pf11
+                qq12 = Pf[k, 1, 2] - pf12
+                qq22 = Pf[k, 2, 2] - pf22
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq02 = 0.0
+                qq11 = 0.0
+                qq12 = 0.0
+                qq22 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+                fm2 = 0.0
+            w0 = qq00 * a00 + qq01 * a01 + qq02 * a02
+            w1 = qq01 * a00 + qq11 * a01 + qq12 * a02
+            w2 = qq02 * a00 + qq12 * a01 + qq22 * a02
+            p0 = pf00 + a00 * w0 + a01 * w1 + a02 * w2
+            p1 = pf01 + a10 * w0 + a11 * w1 + a12 * w2
+            p2 = pf02 + a20 * w0 + a21 * w1 + a22 * w2
+            mq = a00 * fm0 + a01 * fm1 + a02 * fm2
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 hh = work[ROW_DT, b]
@@ -3683,79 +3811,36 @@ def predict_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var
                 e20 = ee * (c020 + hh * (c120 + hh * c220))
                 e21 = ee * (c021 + hh * (c121 + hh * c221))
                 e22 = ee * (c022 + hh * (c122 + hh * c222))
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq02 = sp02 - pf02
-                qq11 = sp11 - pf11
-                qq12 = sp12 - pf12
-                qq22 = sp22 - pf22
-                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
-                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
-                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
-                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
-                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
-                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
-                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
-                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
-                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
-                pp00 = w00 * e00 + w01 * e01 + w02 * e02
-                pp01 = w00 * e10 + w01 * e11 + w02 * e12
-                pp02 = w00 * e20 + w01 * e21 + w02 * e22
-                pp11 = w10 * e10 + w11 * e11 + w12 * e12
-                pp12 = w10 * e20 + w11 * e21 + w12 * e22
-                pp22 = w20 * e20 + w21 * e21 + w22 * e22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
-                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
-                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
-                gg20 = z2 * iv2
-                gg10 = z1 * iv1 - l21 * gg20
-                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
-                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
-                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp02 = Ps[k + 1, 0, 2] - pp02
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                dp12 = Ps[k + 1, 1, 2] - pp12
-                dp22 = Ps[k + 1, 2, 2] - pp22
-                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
-                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
-                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
-                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+                cc0 = e00 * p0 + e01 * p1 + e02 * p2
+                cc1 = e10 * p0 + e11 * p1 + e12 * p2
+                cc2 = e20 * p0 + e21 * p1 + e22 * p2
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1] + cc2 * lam[k + 1, 2]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1 + Lam[k + 1, 0, 2] * cc2
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1 + Lam[k + 1, 1, 2] * cc2
+                y2 = Lam[k + 1, 2, 0] * cc0 + Lam[k + 1, 2, 1] * cc1 + Lam[k + 1, 2, 2] * cc2
+                var -= cc0 * y0 + cc1 * y1 + cc2 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d1_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -3788,76 +3873,62 @@ def predict_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                     a00 = vload(ra0, b)
                     qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-                    w00 = vmul(a00, qq00)
-                    sp00 = vfma(w00, a00, vpf00)
-                    sm0 = vmul(a00, fm0)
+                    w0 = vmul(qq00, a00)
+                    p0 = vfma(a00, w0, vpf00)
+                    mq = vmul(a00, fm0)
                     e00 = vload(rb0, b)
-                    qq00 = vsub(sp00, vpf00)
-                    w00 = vmul(e00, qq00)
-                    pp00 = vfma(w00, e00, vpf00)
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    z0 = vmul(e00, sp00)
-                    g0 = vmul(z0, iv0)
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
-                    vmean = vfma(g0, dd0, sm0)
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    y0 = vmul(dp00, g0)
-                    vvar = vfma(g0, y0, sp00)
+                    cc0 = vmul(e00, p0)
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    vmean = vfma(cc0, u0, mq)
+                    y0 = vmul(U00, cc0)
+                    vvar = vsub(p0, vmul(cc0, y0))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sp00 = pf00
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                w00 = a00 * qq00
-                sp00 = w00 * a00
-                sp00 += pf00
-                sm0 = a00 * src_m[k, 0]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                fm0 = mf[k, 0]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                fm0 = 0.0
+            w0 = qq00 * a00
+            p0 = pf00 + a00 * w0
+            mq = a00 * fm0
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 1 + 0, b]
-                qq00 = sp00 - pf00
-                w00 = e00 * qq00
-                pp00 = w00 * e00
-                pp00 += pf00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = e00 * sp00
-                gg00 = z0 * iv0
-                dd0 = ms[k + 1, 0] - (e00 * sm0)
-                mean += gg00 * dd0
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                y0 = dp00 * gg00
-                var += gg00 * y0
+                cc0 = e00 * p0
+                mean += cc0 * lam[k + 1, 0]
+                y0 = Lam[k + 1, 0, 0] * cc0
+                var -= cc0 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d2_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -3906,138 +3977,88 @@ def predict_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                     qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-                    w00 = vfma(a00, qq00, vmul(a01, qq01))
-                    w01 = vfma(a00, qq01, vmul(a01, qq11))
-                    w10 = vfma(a10, qq00, vmul(a11, qq01))
-                    w11 = vfma(a10, qq01, vmul(a11, qq11))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
-                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
-                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    w0 = vfma(qq00, a00, vmul(qq01, a01))
+                    w1 = vfma(qq01, a00, vmul(qq11, a01))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vpf00))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vpf01))
+                    mq = vfma(a00, fm0, vmul(a01, fm1))
                     e00 = vload(rb0, b)
                     e01 = vload(rb1, b)
                     e10 = vload(rb2, b)
                     e11 = vload(rb3, b)
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq11 = vsub(sp11, vpf11)
-                    w00 = vfma(e00, qq00, vmul(e01, qq01))
-                    w01 = vfma(e00, qq01, vmul(e01, qq11))
-                    w10 = vfma(e10, qq00, vmul(e11, qq01))
-                    w11 = vfma(e10, qq01, vmul(e11, qq11))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    z0 = vfma(e00, sp00, vmul(e01, sp01))
-                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
-                    g1 = vmul(z1, iv1)
-                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    y0 = vfma(dp00, g0, vmul(dp01, g1))
-                    y1 = vfma(dp01, g0, vmul(dp11, g1))
-                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    cc0 = vfma(e00, p0, vmul(e01, p1))
+                    cc1 = vfma(e10, p0, vmul(e11, p1))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, mq))
+                    y0 = vfma(U00, cc0, vmul(U01, cc1))
+                    y1 = vfma(U01, cc0, vmul(U11, cc1))
+                    vvar = vsub(p0, vfma(cc0, y0, vmul(cc1, y1)))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp11 = pf11
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a10 = work[ROW_A + 2, b]
-                a11 = work[ROW_A + 3, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq11 = src_P[k, 1, 1] - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                sp00 = w00 * a00 + w01 * a01
-                sp01 = w00 * a10 + w01 * a11
-                sp11 = w10 * a10 + w11 * a11
-                sp00 += pf00
-                sp01 += pf01
-                sp11 += pf11
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            a01 = work[ROW_A + 1, b]
+            a10 = work[ROW_A + 2, b]
+            a11 = work[ROW_A + 3, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq11 = Pf[k, 1, 1] - pf11
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq11 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+            w0 = qq00 * a00 + qq01 * a01
+            w1 = qq01 * a00 + qq11 * a01
+            p0 = pf00 + a00 * w0 + a01 * w1
+            p1 = pf01 + a10 * w0 + a11 * w1
+            mq = a00 * fm0 + a01 * fm1
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 4 + 0, b]
                 e01 = work[ROW_A + 4 + 1, b]
                 e10 = work[ROW_A + 4 + 2, b]
                 e11 = work[ROW_A + 4 + 3, b]
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq11 = sp11 - pf11
-                w00 = e00 * qq00 + e01 * qq01
-                w01 = e00 * qq01 + e01 * qq11
-                w10 = e10 * qq00 + e11 * qq01
-                w11 = e10 * qq01 + e11 * qq11
-                pp00 = w00 * e00 + w01 * e01
-                pp01 = w00 * e10 + w01 * e11
-                pp11 = w10 * e10 + w11 * e11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01
-                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
-                gg10 = z1 * iv1
-                gg00 = z0 * iv0 - l10 * gg10
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
-                mean += gg00 * dd0 + gg10 * dd1
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                y0 = dp00 * gg00 + dp01 * gg10
-                y1 = dp01 * gg00 + dp11 * gg10
-                var += gg00 * y0 + gg10 * y1
+                cc0 = e00 * p0 + e01 * p1
+                cc1 = e10 * p0 + e11 * p1
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1
+                var -= cc0 * y0 + cc1 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, parallel=True, fastmath={'contract'})
-def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_d3_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in parallel, each with
     its own work array.
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -4111,24 +4132,13 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
                     fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
-                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
-                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
-                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
-                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
-                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
-                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
-                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
-                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
-                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
-                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
-                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
-                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
-                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
-                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    w0 = vfma(qq00, a00, vfma(qq01, a01, vmul(qq02, a02)))
+                    w1 = vfma(qq01, a00, vfma(qq11, a01, vmul(qq12, a02)))
+                    w2 = vfma(qq02, a00, vfma(qq12, a01, vmul(qq22, a02)))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vfma(a02, w2, vpf00)))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vfma(a12, w2, vpf01)))
+                    p2 = vfma(a20, w0, vfma(a21, w1, vfma(a22, w2, vpf02)))
+                    mq = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
                     e00 = vload(rb0, b)
                     e01 = vload(rb1, b)
                     e02 = vload(rb2, b)
@@ -4138,118 +4148,67 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                     e20 = vload(rb6, b)
                     e21 = vload(rb7, b)
                     e22 = vload(rb8, b)
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq02 = vsub(sp02, vpf02)
-                    qq11 = vsub(sp11, vpf11)
-                    qq12 = vsub(sp12, vpf12)
-                    qq22 = vsub(sp22, vpf22)
-                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
-                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
-                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
-                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
-                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
-                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
-                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
-                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
-                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
-                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
-                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
-                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    l20 = vmul(pp02, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
-                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
-                    iv2 = vrecip_pos(dg2)
-                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
-                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
-                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
-                    g2 = vmul(z2, iv2)
-                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
-                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
-                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
-                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
-                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
-                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
-                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
-                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    cc0 = vfma(e00, p0, vfma(e01, p1, vmul(e02, p2)))
+                    cc1 = vfma(e10, p0, vfma(e11, p1, vmul(e12, p2)))
+                    cc2 = vfma(e20, p0, vfma(e21, p1, vmul(e22, p2)))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    u2 = (lam[k0 + 1, 2], lam[k1 + 1, 2], lam[k2 + 1, 2], lam[k3 + 1, 2])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U02 = (Lam[k0 + 1, 0, 2], Lam[k1 + 1, 0, 2], Lam[k2 + 1, 0, 2], Lam[k3 + 1, 0, 2])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    U12 = (Lam[k0 + 1, 1, 2], Lam[k1 + 1, 1, 2], Lam[k2 + 1, 1, 2], Lam[k3 + 1, 1, 2])
+                    U22 = (Lam[k0 + 1, 2, 2], Lam[k1 + 1, 2, 2], Lam[k2 + 1, 2, 2], Lam[k3 + 1, 2, 2])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, vfma(cc2, u2, mq)))
+                    y0 = vfma(U00, cc0, vfma(U01, cc1, vmul(U02, cc2)))
+                    y1 = vfma(U01, cc0, vfma(U11, cc1, vmul(U12, cc2)))
+                    y2 = vfma(U02, cc0, vfma(U12, cc1, vmul(U22, cc2)))
+                    vvar = vsub(p0, vfma(cc0, y0, vfma(cc1, y1, vmul(cc2, y2))))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sm2 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp02 = pf02
-                sp11 = pf11
-                sp12 = pf12
-                sp22 = pf22
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a02 = work[ROW_A + 2, b]
-                a10 = work[ROW_A + 3, b]
-                a11 = work[ROW_A + 4, b]
-                a12 = work[ROW_A + 5, b]
-                a20 = work[ROW_A + 6, b]
-                a21 = work[ROW_A + 7, b]
-                a22 = work[ROW_A + 8, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq02 = src_P[k, 0, 2] - pf02
-                qq11 = src_P[k, 1, 1] - pf11
-                qq12 = src_P[k, 1, 2] - pf12
-                qq22 = src_P[k, 2, 2] - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                sp00 = w00 * a00 + w01 * a01 + w02 * a02
-                sp01 = w00 * a10 + w01 * a11 + w02 * a12
-                sp02 = w00 * a20 + w01 * a21 + w02 * a22
-                sp11 = w10 * a10 + w11 * a11 + w12 * a12
-                sp12 = w10 * a20 + w11 * a21 + w12 * a22
-                sp22 = w20 * a20 + w21 * a21 + w22 * a22
-                sp00 += pf00
-                sp01 += pf01
-                sp02 += pf02
-                sp11 += pf11
-                sp12 += pf12
-                sp22 += pf22
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
-                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            a01 = work[ROW_A + 1, b]
+            a02 = work[ROW_A + 2, b]
+            a10 = work[ROW_A + 3, b]
+            a11 = work[ROW_A + 4, b]
+            a12 = work[ROW_A + 5, b]
+            a20 = work[ROW_A + 6, b]
+            a21 = work[ROW_A + 7, b]
+            a22 = work[ROW_A + 8, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq02 = Pf[k, 0, 2] - pf02
+                qq11 = Pf[k, 1, 1] - pf11
+                qq12 = Pf[k, 1, 2] - pf12
+                qq22 = Pf[k, 2, 2] - pf22
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq02 = 0.0
+                qq11 = 0.0
+                qq12 = 0.0
+                qq22 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+                fm2 = 0.0
+            w0 = qq00 * a00 + qq01 * a01 + qq02 * a02
+            w1 = qq01 * a00 + qq11 * a01 + qq12 * a02
+            w2 = qq02 * a00 + qq12 * a01 + qq22 * a02
+            p0 = pf00 + a00 * w0 + a01 * w1 + a02 * w2
+            p1 = pf01 + a10 * w0 + a11 * w1 + a12 * w2
+            p2 = pf02 + a20 * w0 + a21 * w1 + a22 * w2
+            mq = a00 * fm0 + a01 * fm1 + a02 * fm2
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 9 + 0, b]
                 e01 = work[ROW_A + 9 + 1, b]
@@ -4260,80 +4219,37 @@ def predict_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var)
                 e20 = work[ROW_A + 9 + 6, b]
                 e21 = work[ROW_A + 9 + 7, b]
                 e22 = work[ROW_A + 9 + 8, b]
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq02 = sp02 - pf02
-                qq11 = sp11 - pf11
-                qq12 = sp12 - pf12
-                qq22 = sp22 - pf22
-                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
-                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
-                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
-                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
-                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
-                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
-                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
-                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
-                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
-                pp00 = w00 * e00 + w01 * e01 + w02 * e02
-                pp01 = w00 * e10 + w01 * e11 + w02 * e12
-                pp02 = w00 * e20 + w01 * e21 + w02 * e22
-                pp11 = w10 * e10 + w11 * e11 + w12 * e12
-                pp12 = w10 * e20 + w11 * e21 + w12 * e22
-                pp22 = w20 * e20 + w21 * e21 + w22 * e22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
-                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
-                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
-                gg20 = z2 * iv2
-                gg10 = z1 * iv1 - l21 * gg20
-                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
-                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
-                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp02 = Ps[k + 1, 0, 2] - pp02
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                dp12 = Ps[k + 1, 1, 2] - pp12
-                dp22 = Ps[k + 1, 2, 2] - pp22
-                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
-                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
-                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
-                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+                cc0 = e00 * p0 + e01 * p1 + e02 * p2
+                cc1 = e10 * p0 + e11 * p1 + e12 * p2
+                cc2 = e20 * p0 + e21 * p1 + e22 * p2
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1] + cc2 * lam[k + 1, 2]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1 + Lam[k + 1, 0, 2] * cc2
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1 + Lam[k + 1, 1, 2] * cc2
+                y2 = Lam[k + 1, 2, 0] * cc0 + Lam[k + 1, 2, 1] * cc1 + Lam[k + 1, 2, 2] * cc2
+                var -= cc0 * y0 + cc1 * y1 + cc2 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d1_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -4374,79 +4290,65 @@ def predict_serial_d1_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                     a00 = vmul(e1, vc000)
                     qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-                    w00 = vmul(a00, qq00)
-                    sp00 = vfma(w00, a00, vpf00)
-                    sm0 = vmul(a00, fm0)
+                    w0 = vmul(qq00, a00)
+                    p0 = vfma(a00, w0, vpf00)
+                    mq = vmul(a00, fm0)
                     e00 = vmul(e2, vc000)
-                    qq00 = vsub(sp00, vpf00)
-                    w00 = vmul(e00, qq00)
-                    pp00 = vfma(w00, e00, vpf00)
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    z0 = vmul(e00, sp00)
-                    g0 = vmul(z0, iv0)
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
-                    vmean = vfma(g0, dd0, sm0)
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    y0 = vmul(dp00, g0)
-                    vvar = vfma(g0, y0, sp00)
+                    cc0 = vmul(e00, p0)
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    vmean = vfma(cc0, u0, mq)
+                    y0 = vmul(U00, cc0)
+                    vvar = vsub(p0, vmul(cc0, y0))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sp00 = pf00
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                a00 = ee * (c000)
-                qq00 = src_P[k, 0, 0] - pf00
-                w00 = a00 * qq00
-                sp00 = w00 * a00
-                sp00 += pf00
-                sm0 = a00 * src_m[k, 0]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            a00 = ee * (c000)
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                fm0 = mf[k, 0]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                fm0 = 0.0
+            w0 = qq00 * a00
+            p0 = pf00 + a00 * w0
+            mq = a00 * fm0
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 e00 = ee * (c000)
-                qq00 = sp00 - pf00
-                w00 = e00 * qq00
-                pp00 = w00 * e00
-                pp00 += pf00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = e00 * sp00
-                gg00 = z0 * iv0
-                dd0 = ms[k + 1, 0] - (e00 * sm0)
-                mean += gg00 * dd0
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                y0 = dp00 * gg00
-                var += gg00 * y0
+                cc0 = e00 * p0
+                mean += cc0 * lam[k + 1, 0]
+                y0 = Lam[k + 1, 0, 0] * cc0
+                var -= cc0 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d2_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -4515,87 +4417,57 @@ def predict_serial_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                     qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-                    w00 = vfma(a00, qq00, vmul(a01, qq01))
-                    w01 = vfma(a00, qq01, vmul(a01, qq11))
-                    w10 = vfma(a10, qq00, vmul(a11, qq01))
-                    w11 = vfma(a10, qq01, vmul(a11, qq11))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
-                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
-                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    w0 = vfma(qq00, a00, vmul(qq01, a01))
+                    w1 = vfma(qq01, a00, vmul(qq11, a01))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vpf00))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vpf01))
+                    mq = vfma(a00, fm0, vmul(a01, fm1))
                     e00 = vmul(e2, vfma(h2, vc100, vc000))
                     e01 = vmul(e2, vfma(h2, vc101, vc001))
                     e10 = vmul(e2, vfma(h2, vc110, vc010))
                     e11 = vmul(e2, vfma(h2, vc111, vc011))
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq11 = vsub(sp11, vpf11)
-                    w00 = vfma(e00, qq00, vmul(e01, qq01))
-                    w01 = vfma(e00, qq01, vmul(e01, qq11))
-                    w10 = vfma(e10, qq00, vmul(e11, qq01))
-                    w11 = vfma(e10, qq01, vmul(e11, qq11))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    z0 = vfma(e00, sp00, vmul(e01, sp01))
-                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
-                    g1 = vmul(z1, iv1)
-                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    y0 = vfma(dp00, g0, vmul(dp01, g1))
-                    y1 = vfma(dp01, g0, vmul(dp11, g1))
-                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    cc0 = vfma(e00, p0, vmul(e01, p1))
+                    cc1 = vfma(e10, p0, vmul(e11, p1))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, mq))
+                    y0 = vfma(U00, cc0, vmul(U01, cc1))
+                    y1 = vfma(U01, cc0, vmul(U11, cc1))
+                    vvar = vsub(p0, vfma(cc0, y0, vmul(cc1, y1)))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp11 = pf11
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                hh = work[ROW_A, b]
-                a00 = ee * (c000 + hh * c100)
-                a01 = ee * (c001 + hh * c101)
-                a10 = ee * (c010 + hh * c110)
-                a11 = ee * (c011 + hh * c111)
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq11 = src_P[k, 1, 1] - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                sp00 = w00 * a00 + w01 * a01
-                sp01 = w00 * a10 + w01 * a11
-                sp11 = w10 * a10 + w11 * a11
-                sp00 += pf00
-                sp01 += pf01
-                sp11 += pf11
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            hh = work[ROW_A, b]
+            a00 = ee * (c000 + hh * c100)
+            a01 = ee * (c001 + hh * c101)
+            a10 = ee * (c010 + hh * c110)
+            a11 = ee * (c011 + hh * c111)
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq11 = Pf[k, 1, 1] - pf11
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq11 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+            w0 = qq00 * a00 + qq01 * a01
+            w1 = qq01 * a00 + qq11 * a01
+            p0 = pf00 + a00 * w0 + a01 * w1
+            p1 = pf01 + a10 * w0 + a11 * w1
+            mq = a00 * fm0 + a01 * fm1
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 hh = work[ROW_DT, b]
@@ -4603,55 +4475,35 @@ def predict_serial_d2_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                 e01 = ee * (c001 + hh * c101)
                 e10 = ee * (c010 + hh * c110)
                 e11 = ee * (c011 + hh * c111)
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq11 = sp11 - pf11
-                w00 = e00 * qq00 + e01 * qq01
-                w01 = e00 * qq01 + e01 * qq11
-                w10 = e10 * qq00 + e11 * qq01
-                w11 = e10 * qq01 + e11 * qq11
-                pp00 = w00 * e00 + w01 * e01
-                pp01 = w00 * e10 + w01 * e11
-                pp11 = w10 * e10 + w11 * e11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01
-                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
-                gg10 = z1 * iv1
-                gg00 = z0 * iv0 - l10 * gg10
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
-                mean += gg00 * dd0 + gg10 * dd1
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                y0 = dp00 * gg00 + dp01 * gg10
-                y1 = dp01 * gg00 + dp11 * gg10
-                var += gg00 * y0 + gg10 * y1
+                cc0 = e00 * p0 + e01 * p1
+                cc1 = e10 * p0 + e11 * p1
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1
+                var -= cc0 * y0 + cc1 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -4773,24 +4625,13 @@ def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
                     fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
-                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
-                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
-                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
-                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
-                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
-                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
-                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
-                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
-                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
-                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
-                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
-                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
-                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
-                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    w0 = vfma(qq00, a00, vfma(qq01, a01, vmul(qq02, a02)))
+                    w1 = vfma(qq01, a00, vfma(qq11, a01, vmul(qq12, a02)))
+                    w2 = vfma(qq02, a00, vfma(qq12, a01, vmul(qq22, a02)))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vfma(a02, w2, vpf00)))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vfma(a12, w2, vpf01)))
+                    p2 = vfma(a20, w0, vfma(a21, w1, vfma(a22, w2, vpf02)))
+                    mq = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
                     e00 = vmul(e2, vfma(h2, vfma(h2, vc200, vc100), vc000))
                     e01 = vmul(e2, vfma(h2, vfma(h2, vc201, vc101), vc001))
                     e02 = vmul(e2, vfma(h2, vfma(h2, vc202, vc102), vc002))
@@ -4800,120 +4641,69 @@ def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                     e20 = vmul(e2, vfma(h2, vfma(h2, vc220, vc120), vc020))
                     e21 = vmul(e2, vfma(h2, vfma(h2, vc221, vc121), vc021))
                     e22 = vmul(e2, vfma(h2, vfma(h2, vc222, vc122), vc022))
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq02 = vsub(sp02, vpf02)
-                    qq11 = vsub(sp11, vpf11)
-                    qq12 = vsub(sp12, vpf12)
-                    qq22 = vsub(sp22, vpf22)
-                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
-                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
-                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
-                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
-                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
-                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
-                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
-                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
-                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
-                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
-                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
-                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    l20 = vmul(pp02, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
-                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
-                    iv2 = vrecip_pos(dg2)
-                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
-                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
-                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
-                    g2 = vmul(z2, iv2)
-                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
-                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
-                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
-                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
-                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
-                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
-                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
-                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    cc0 = vfma(e00, p0, vfma(e01, p1, vmul(e02, p2)))
+                    cc1 = vfma(e10, p0, vfma(e11, p1, vmul(e12, p2)))
+                    cc2 = vfma(e20, p0, vfma(e21, p1, vmul(e22, p2)))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    u2 = (lam[k0 + 1, 2], lam[k1 + 1, 2], lam[k2 + 1, 2], lam[k3 + 1, 2])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U02 = (Lam[k0 + 1, 0, 2], Lam[k1 + 1, 0, 2], Lam[k2 + 1, 0, 2], Lam[k3 + 1, 0, 2])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    U12 = (Lam[k0 + 1, 1, 2], Lam[k1 + 1, 1, 2], Lam[k2 + 1, 1, 2], Lam[k3 + 1, 1, 2])
+                    U22 = (Lam[k0 + 1, 2, 2], Lam[k1 + 1, 2, 2], Lam[k2 + 1, 2, 2], Lam[k3 + 1, 2, 2])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, vfma(cc2, u2, mq)))
+                    y0 = vfma(U00, cc0, vfma(U01, cc1, vmul(U02, cc2)))
+                    y1 = vfma(U01, cc0, vfma(U11, cc1, vmul(U12, cc2)))
+                    y2 = vfma(U02, cc0, vfma(U12, cc1, vmul(U22, cc2)))
+                    vvar = vsub(p0, vfma(cc0, y0, vfma(cc1, y1, vmul(cc2, y2))))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sm2 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp02 = pf02
-                sp11 = pf11
-                sp12 = pf12
-                sp22 = pf22
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                ee = work[ROW_A + 1, b]
-                hh = work[ROW_A, b]
-                a00 = ee * (c000 + hh * (c100 + hh * c200))
-                a01 = ee * (c001 + hh * (c101 + hh * c201))
-                a02 = ee * (c002 + hh * (c102 + hh * c202))
-                a10 = ee * (c010 + hh * (c110 + hh * c210))
-                a11 = ee * (c011 + hh * (c111 + hh * c211))
-                a12 = ee * (c012 + hh * (c112 + hh * c212))
-                a20 = ee * (c020 + hh * (c120 + hh * c220))
-                a21 = ee * (c021 + hh * (c121 + hh * c221))
-                a22 = ee * (c022 + hh * (c122 + hh * c222))
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq02 = src_P[k, 0, 2] - pf02
-                qq11 = src_P[k, 1, 1] - pf11
-                qq12 = src_P[k, 1, 2] - pf12
-                qq22 = src_P[k, 2, 2] - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                sp00 = w00 * a00 + w01 * a01 + w02 * a02
-                sp01 = w00 * a10 + w01 * a11 + w02 * a12
-                sp02 = w00 * a20 + w01 * a21 + w02 * a22
-                sp11 = w10 * a10 + w11 * a11 + w12 * a12
-                sp12 = w10 * a20 + w11 * a21 + w12 * a22
-                sp22 = w20 * a20 + w21 * a21 + w22 * a22
-                sp00 += pf00
-                sp01 += pf01
-                sp02 += pf02
-                sp11 += pf11
-                sp12 += pf12
-                sp22 += pf22
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
-                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
-            mean = sm0
-            var = sp00
+            ee = work[ROW_A + 1, b]
+            hh = work[ROW_A, b]
+            a00 = ee * (c000 + hh * (c100 + hh * c200))
+            a01 = ee * (c001 + hh * (c101 + hh * c201))
+            a02 = ee * (c002 + hh * (c102 + hh * c202))
+            a10 = ee * (c010 + hh * (c110 + hh * c210))
+            a11 = ee * (c011 + hh * (c111 + hh * c211))
+            a12 = ee * (c012 + hh * (c112 + hh * c212))
+            a20 = ee * (c020 + hh * (c120 + hh * c220))
+            a21 = ee * (c021 + hh * (c121 + hh * c221))
+            a22 = ee * (c022 + hh * (c122 + hh * c222))
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq02 = Pf[k, 0, 2] - pf02
+                qq11 = Pf[k, 1, 1] - pf11
+                qq12 = Pf[k, 1, 2] - pf12
+                qq22 = Pf[k, 2, 2] - pf22
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq02 = 0.0
+                qq11 = 0.0
+                qq12 = 0.0
+                qq22 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+                fm2 = 0.0
+            w0 = qq00 * a00 + qq01 * a01 + qq02 * a02
+            w1 = qq01 * a00 + qq11 * a01 + qq12 * a02
+            w2 = qq02 * a00 + qq12 * a01 + qq22 * a02
+            p0 = pf00 + a00 * w0 + a01 * w1 + a02 * w2
+            p1 = pf01 + a10 * w0 + a11 * w1 + a12 * w2
+            p2 = pf02 + a20 * w0 + a21 * w1 + a22 * w2
+            mq = a00 * fm0 + a01 * fm1 + a02 * fm2
+            mean = mq
+            var = p0
             if k < n - 1:
                 ee = work[ROW_E, b]
                 hh = work[ROW_DT, b]
@@ -4926,80 +4716,37 @@ def predict_serial_d3_single(tq, idx, t, pinf, trans, filt, smoothed, out_mean, 
                 e20 = ee * (c020 + hh * (c120 + hh * c220))
                 e21 = ee * (c021 + hh * (c121 + hh * c221))
                 e22 = ee * (c022 + hh * (c122 + hh * c222))
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq02 = sp02 - pf02
-                qq11 = sp11 - pf11
-                qq12 = sp12 - pf12
-                qq22 = sp22 - pf22
-                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
-                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
-                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
-                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
-                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
-                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
-                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
-                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
-                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
-                pp00 = w00 * e00 + w01 * e01 + w02 * e02
-                pp01 = w00 * e10 + w01 * e11 + w02 * e12
-                pp02 = w00 * e20 + w01 * e21 + w02 * e22
-                pp11 = w10 * e10 + w11 * e11 + w12 * e12
-                pp12 = w10 * e20 + w11 * e21 + w12 * e22
-                pp22 = w20 * e20 + w21 * e21 + w22 * e22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
-                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
-                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
-                gg20 = z2 * iv2
-                gg10 = z1 * iv1 - l21 * gg20
-                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
-                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
-                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp02 = Ps[k + 1, 0, 2] - pp02
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                dp12 = Ps[k + 1, 1, 2] - pp12
-                dp22 = Ps[k + 1, 2, 2] - pp22
-                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
-                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
-                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
-                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+                cc0 = e00 * p0 + e01 * p1 + e02 * p2
+                cc1 = e10 * p0 + e11 * p1 + e12 * p2
+                cc2 = e20 * p0 + e21 * p1 + e22 * p2
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1] + cc2 * lam[k + 1, 2]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1 + Lam[k + 1, 0, 2] * cc2
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1 + Lam[k + 1, 1, 2] * cc2
+                y2 = Lam[k + 1, 2, 0] * cc0 + Lam[k + 1, 2, 1] * cc1 + Lam[k + 1, 2, 2] * cc2
+                var -= cc0 * y0 + cc1 * y1 + cc2 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d1_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 1.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -5032,77 +4779,63 @@ def predict_serial_d1_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, o
                     a00 = vload(ra0, b)
                     qq00 = vsub((Pf[k0, 0, 0], Pf[k1, 0, 0], Pf[k2, 0, 0], Pf[k3, 0, 0]), vpf00)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
-                    w00 = vmul(a00, qq00)
-                    sp00 = vfma(w00, a00, vpf00)
-                    sm0 = vmul(a00, fm0)
+                    w0 = vmul(qq00, a00)
+                    p0 = vfma(a00, w0, vpf00)
+                    mq = vmul(a00, fm0)
                     e00 = vload(rb0, b)
-                    qq00 = vsub(sp00, vpf00)
-                    w00 = vmul(e00, qq00)
-                    pp00 = vfma(w00, e00, vpf00)
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    z0 = vmul(e00, sp00)
-                    g0 = vmul(z0, iv0)
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vmul(e00, sm0))
-                    vmean = vfma(g0, dd0, sm0)
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    y0 = vmul(dp00, g0)
-                    vvar = vfma(g0, y0, sp00)
+                    cc0 = vmul(e00, p0)
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    vmean = vfma(cc0, u0, mq)
+                    y0 = vmul(U00, cc0)
+                    vvar = vsub(p0, vmul(cc0, y0))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sp00 = pf00
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                w00 = a00 * qq00
-                sp00 = w00 * a00
-                sp00 += pf00
-                sm0 = a00 * src_m[k, 0]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                fm0 = mf[k, 0]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                fm0 = 0.0
+            w0 = qq00 * a00
+            p0 = pf00 + a00 * w0
+            mq = a00 * fm0
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 1 + 0, b]
-                qq00 = sp00 - pf00
-                w00 = e00 * qq00
-                pp00 = w00 * e00
-                pp00 += pf00
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                z0 = e00 * sp00
-                gg00 = z0 * iv0
-                dd0 = ms[k + 1, 0] - (e00 * sm0)
-                mean += gg00 * dd0
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                y0 = dp00 * gg00
-                var += gg00 * y0
+                cc0 = e00 * p0
+                mean += cc0 * lam[k + 1, 0]
+                y0 = Lam[k + 1, 0, 0] * cc0
+                var -= cc0 * y0
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d2_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 2.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -5151,139 +4884,89 @@ def predict_serial_d2_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, o
                     qq11 = vsub((Pf[k0, 1, 1], Pf[k1, 1, 1], Pf[k2, 1, 1], Pf[k3, 1, 1]), vpf11)
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
-                    w00 = vfma(a00, qq00, vmul(a01, qq01))
-                    w01 = vfma(a00, qq01, vmul(a01, qq11))
-                    w10 = vfma(a10, qq00, vmul(a11, qq01))
-                    w11 = vfma(a10, qq01, vmul(a11, qq11))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vpf00))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vpf01))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vpf11))
-                    sm0 = vfma(a00, fm0, vmul(a01, fm1))
-                    sm1 = vfma(a10, fm0, vmul(a11, fm1))
+                    w0 = vfma(qq00, a00, vmul(qq01, a01))
+                    w1 = vfma(qq01, a00, vmul(qq11, a01))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vpf00))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vpf01))
+                    mq = vfma(a00, fm0, vmul(a01, fm1))
                     e00 = vload(rb0, b)
                     e01 = vload(rb1, b)
                     e10 = vload(rb2, b)
                     e11 = vload(rb3, b)
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq11 = vsub(sp11, vpf11)
-                    w00 = vfma(e00, qq00, vmul(e01, qq01))
-                    w01 = vfma(e00, qq01, vmul(e01, qq11))
-                    w10 = vfma(e10, qq00, vmul(e11, qq01))
-                    w11 = vfma(e10, qq01, vmul(e11, qq11))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vpf00))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vpf01))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vpf11))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    z0 = vfma(e00, sp00, vmul(e01, sp01))
-                    z1 = vsub(vfma(e10, sp00, vmul(e11, sp01)), vmul(l10, z0))
-                    g1 = vmul(z1, iv1)
-                    g0 = vsub(vmul(z0, iv0), vmul(l10, g1))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vmul(e01, sm1)))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vmul(e11, sm1)))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, sm0))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    y0 = vfma(dp00, g0, vmul(dp01, g1))
-                    y1 = vfma(dp01, g0, vmul(dp11, g1))
-                    vvar = vfma(g0, y0, vfma(g1, y1, sp00))
+                    cc0 = vfma(e00, p0, vmul(e01, p1))
+                    cc1 = vfma(e10, p0, vmul(e11, p1))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, mq))
+                    y0 = vfma(U00, cc0, vmul(U01, cc1))
+                    y1 = vfma(U01, cc0, vmul(U11, cc1))
+                    vvar = vsub(p0, vfma(cc0, y0, vmul(cc1, y1)))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp11 = pf11
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a10 = work[ROW_A + 2, b]
-                a11 = work[ROW_A + 3, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq11 = src_P[k, 1, 1] - pf11
-                w00 = a00 * qq00 + a01 * qq01
-                w01 = a00 * qq01 + a01 * qq11
-                w10 = a10 * qq00 + a11 * qq01
-                w11 = a10 * qq01 + a11 * qq11
-                sp00 = w00 * a00 + w01 * a01
-                sp01 = w00 * a10 + w01 * a11
-                sp11 = w10 * a10 + w11 * a11
-                sp00 += pf00
-                sp01 += pf01
-                sp11 += pf11
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            a01 = work[ROW_A + 1, b]
+            a10 = work[ROW_A + 2, b]
+            a11 = work[ROW_A + 3, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq11 = Pf[k, 1, 1] - pf11
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq11 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+            w0 = qq00 * a00 + qq01 * a01
+            w1 = qq01 * a00 + qq11 * a01
+            p0 = pf00 + a00 * w0 + a01 * w1
+            p1 = pf01 + a10 * w0 + a11 * w1
+            mq = a00 * fm0 + a01 * fm1
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 4 + 0, b]
                 e01 = work[ROW_A + 4 + 1, b]
                 e10 = work[ROW_A + 4 + 2, b]
                 e11 = work[ROW_A + 4 + 3, b]
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq11 = sp11 - pf11
-                w00 = e00 * qq00 + e01 * qq01
-                w01 = e00 * qq01 + e01 * qq11
-                w10 = e10 * qq00 + e11 * qq01
-                w11 = e10 * qq01 + e11 * qq11
-                pp00 = w00 * e00 + w01 * e01
-                pp01 = w00 * e10 + w01 * e11
-                pp11 = w10 * e10 + w11 * e11
-                pp00 += pf00
-                pp01 += pf01
-                pp11 += pf11
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01
-                z1 = e10 * sp00 + e11 * sp01 - l10 * z0
-                gg10 = z1 * iv1
-                gg00 = z0 * iv0 - l10 * gg10
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1)
-                mean += gg00 * dd0 + gg10 * dd1
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                y0 = dp00 * gg00 + dp01 * gg10
-                y1 = dp01 * gg00 + dp11 * gg10
-                var += gg00 * y0 + gg10 * y1
+                cc0 = e00 * p0 + e01 * p1
+                cc1 = e10 * p0 + e11 * p1
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1
+                var -= cc0 * y0 + cc1 * y1
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, out_var):
+def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_var):
     """Posterior mean and variance of ``f = x_0`` at query times, d = 3.
 
     As ``kalman.predict_between`` (``idx[i]`` is the last training index with
-    ``t <= tq[i]``, -1 before the first) but only the first component is formed:
-    the RTS step needs one row of the gain, ``g = Pp^-1 A2 P*[:, 0]``.
+    ``t <= tq[i]``, -1 before the first), from the filtered state at ``idx[i]``
+    and the adjoint ``adj = (lam, Lam)`` at ``idx[i] + 1`` (``adjoint_*``):
+    with ``(m, P)`` the filter's prediction at the query and ``c = A2 P e_0``
+    (``A2`` from the query to the next data time), the mean is
+    ``m_0 + c . u`` and the variance ``P_00 - c^T U c`` (no solve). After
+    the last data time it is the filter's prediction (the smoothed state
+    there is the filtered one).
     Queries are processed in chunks of ``PREDICT_CHUNK`` in one thread, with
     the GIL released: for callers that run two of these at once in threads
     (numba's default thread pool does not allow two parallel regions at once).
     """
     mf, Pf = filt
-    ms, Ps = smoothed
+    lam, Lam = adj
     n = t.size
     nq = tq.size
     pf00 = pinf[0, 0]
@@ -5357,24 +5040,13 @@ def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, o
                     fm0 = (mf[k0, 0], mf[k1, 0], mf[k2, 0], mf[k3, 0])
                     fm1 = (mf[k0, 1], mf[k1, 1], mf[k2, 1], mf[k3, 1])
                     fm2 = (mf[k0, 2], mf[k1, 2], mf[k2, 2], mf[k3, 2])
-                    w00 = vfma(a00, qq00, vfma(a01, qq01, vmul(a02, qq02)))
-                    w01 = vfma(a00, qq01, vfma(a01, qq11, vmul(a02, qq12)))
-                    w02 = vfma(a00, qq02, vfma(a01, qq12, vmul(a02, qq22)))
-                    w10 = vfma(a10, qq00, vfma(a11, qq01, vmul(a12, qq02)))
-                    w11 = vfma(a10, qq01, vfma(a11, qq11, vmul(a12, qq12)))
-                    w12 = vfma(a10, qq02, vfma(a11, qq12, vmul(a12, qq22)))
-                    w20 = vfma(a20, qq00, vfma(a21, qq01, vmul(a22, qq02)))
-                    w21 = vfma(a20, qq01, vfma(a21, qq11, vmul(a22, qq12)))
-                    w22 = vfma(a20, qq02, vfma(a21, qq12, vmul(a22, qq22)))
-                    sp00 = vfma(w00, a00, vfma(w01, a01, vfma(w02, a02, vpf00)))
-                    sp01 = vfma(w00, a10, vfma(w01, a11, vfma(w02, a12, vpf01)))
-                    sp02 = vfma(w00, a20, vfma(w01, a21, vfma(w02, a22, vpf02)))
-                    sp11 = vfma(w10, a10, vfma(w11, a11, vfma(w12, a12, vpf11)))
-                    sp12 = vfma(w10, a20, vfma(w11, a21, vfma(w12, a22, vpf12)))
-                    sp22 = vfma(w20, a20, vfma(w21, a21, vfma(w22, a22, vpf22)))
-                    sm0 = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
-                    sm1 = vfma(a10, fm0, vfma(a11, fm1, vmul(a12, fm2)))
-                    sm2 = vfma(a20, fm0, vfma(a21, fm1, vmul(a22, fm2)))
+                    w0 = vfma(qq00, a00, vfma(qq01, a01, vmul(qq02, a02)))
+                    w1 = vfma(qq01, a00, vfma(qq11, a01, vmul(qq12, a02)))
+                    w2 = vfma(qq02, a00, vfma(qq12, a01, vmul(qq22, a02)))
+                    p0 = vfma(a00, w0, vfma(a01, w1, vfma(a02, w2, vpf00)))
+                    p1 = vfma(a10, w0, vfma(a11, w1, vfma(a12, w2, vpf01)))
+                    p2 = vfma(a20, w0, vfma(a21, w1, vfma(a22, w2, vpf02)))
+                    mq = vfma(a00, fm0, vfma(a01, fm1, vmul(a02, fm2)))
                     e00 = vload(rb0, b)
                     e01 = vload(rb1, b)
                     e02 = vload(rb2, b)
@@ -5384,118 +5056,67 @@ def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, o
                     e20 = vload(rb6, b)
                     e21 = vload(rb7, b)
                     e22 = vload(rb8, b)
-                    qq00 = vsub(sp00, vpf00)
-                    qq01 = vsub(sp01, vpf01)
-                    qq02 = vsub(sp02, vpf02)
-                    qq11 = vsub(sp11, vpf11)
-                    qq12 = vsub(sp12, vpf12)
-                    qq22 = vsub(sp22, vpf22)
-                    w00 = vfma(e00, qq00, vfma(e01, qq01, vmul(e02, qq02)))
-                    w01 = vfma(e00, qq01, vfma(e01, qq11, vmul(e02, qq12)))
-                    w02 = vfma(e00, qq02, vfma(e01, qq12, vmul(e02, qq22)))
-                    w10 = vfma(e10, qq00, vfma(e11, qq01, vmul(e12, qq02)))
-                    w11 = vfma(e10, qq01, vfma(e11, qq11, vmul(e12, qq12)))
-                    w12 = vfma(e10, qq02, vfma(e11, qq12, vmul(e12, qq22)))
-                    w20 = vfma(e20, qq00, vfma(e21, qq01, vmul(e22, qq02)))
-                    w21 = vfma(e20, qq01, vfma(e21, qq11, vmul(e22, qq12)))
-                    w22 = vfma(e20, qq02, vfma(e21, qq12, vmul(e22, qq22)))
-                    pp00 = vfma(w00, e00, vfma(w01, e01, vfma(w02, e02, vpf00)))
-                    pp01 = vfma(w00, e10, vfma(w01, e11, vfma(w02, e12, vpf01)))
-                    pp02 = vfma(w00, e20, vfma(w01, e21, vfma(w02, e22, vpf02)))
-                    pp11 = vfma(w10, e10, vfma(w11, e11, vfma(w12, e12, vpf11)))
-                    pp12 = vfma(w10, e20, vfma(w11, e21, vfma(w12, e22, vpf12)))
-                    pp22 = vfma(w20, e20, vfma(w21, e21, vfma(w22, e22, vpf22)))
-                    dg0 = pp00
-                    iv0 = vrecip_pos(dg0)
-                    l10 = vmul(pp01, iv0)
-                    l20 = vmul(pp02, iv0)
-                    dg1 = vsub(pp11, vmul(l10, vmul(l10, dg0)))
-                    iv1 = vrecip_pos(dg1)
-                    l21 = vmul(vsub(pp12, vmul(l20, vmul(l10, dg0))), iv1)
-                    dg2 = vsub(pp22, vfma(l20, vmul(l20, dg0), vmul(l21, vmul(l21, dg1))))
-                    iv2 = vrecip_pos(dg2)
-                    z0 = vfma(e00, sp00, vfma(e01, sp01, vmul(e02, sp02)))
-                    z1 = vsub(vfma(e10, sp00, vfma(e11, sp01, vmul(e12, sp02))), vmul(l10, z0))
-                    z2 = vsub(vfma(e20, sp00, vfma(e21, sp01, vmul(e22, sp02))), vfma(l20, z0, vmul(l21, z1)))
-                    g2 = vmul(z2, iv2)
-                    g1 = vsub(vmul(z1, iv1), vmul(l21, g2))
-                    g0 = vsub(vmul(z0, iv0), vfma(l10, g1, vmul(l20, g2)))
-                    dd0 = vsub((ms[k0 + 1, 0], ms[k1 + 1, 0], ms[k2 + 1, 0], ms[k3 + 1, 0]), vfma(e00, sm0, vfma(e01, sm1, vmul(e02, sm2))))
-                    dd1 = vsub((ms[k0 + 1, 1], ms[k1 + 1, 1], ms[k2 + 1, 1], ms[k3 + 1, 1]), vfma(e10, sm0, vfma(e11, sm1, vmul(e12, sm2))))
-                    dd2 = vsub((ms[k0 + 1, 2], ms[k1 + 1, 2], ms[k2 + 1, 2], ms[k3 + 1, 2]), vfma(e20, sm0, vfma(e21, sm1, vmul(e22, sm2))))
-                    vmean = vfma(g0, dd0, vfma(g1, dd1, vfma(g2, dd2, sm0)))
-                    dp00 = vsub((Ps[k0 + 1, 0, 0], Ps[k1 + 1, 0, 0], Ps[k2 + 1, 0, 0], Ps[k3 + 1, 0, 0]), pp00)
-                    dp01 = vsub((Ps[k0 + 1, 0, 1], Ps[k1 + 1, 0, 1], Ps[k2 + 1, 0, 1], Ps[k3 + 1, 0, 1]), pp01)
-                    dp02 = vsub((Ps[k0 + 1, 0, 2], Ps[k1 + 1, 0, 2], Ps[k2 + 1, 0, 2], Ps[k3 + 1, 0, 2]), pp02)
-                    dp11 = vsub((Ps[k0 + 1, 1, 1], Ps[k1 + 1, 1, 1], Ps[k2 + 1, 1, 1], Ps[k3 + 1, 1, 1]), pp11)
-                    dp12 = vsub((Ps[k0 + 1, 1, 2], Ps[k1 + 1, 1, 2], Ps[k2 + 1, 1, 2], Ps[k3 + 1, 1, 2]), pp12)
-                    dp22 = vsub((Ps[k0 + 1, 2, 2], Ps[k1 + 1, 2, 2], Ps[k2 + 1, 2, 2], Ps[k3 + 1, 2, 2]), pp22)
-                    y0 = vfma(dp00, g0, vfma(dp01, g1, vmul(dp02, g2)))
-                    y1 = vfma(dp01, g0, vfma(dp11, g1, vmul(dp12, g2)))
-                    y2 = vfma(dp02, g0, vfma(dp12, g1, vmul(dp22, g2)))
-                    vvar = vfma(g0, y0, vfma(g1, y1, vfma(g2, y2, sp00)))
+                    cc0 = vfma(e00, p0, vfma(e01, p1, vmul(e02, p2)))
+                    cc1 = vfma(e10, p0, vfma(e11, p1, vmul(e12, p2)))
+                    cc2 = vfma(e20, p0, vfma(e21, p1, vmul(e22, p2)))
+                    u0 = (lam[k0 + 1, 0], lam[k1 + 1, 0], lam[k2 + 1, 0], lam[k3 + 1, 0])
+                    u1 = (lam[k0 + 1, 1], lam[k1 + 1, 1], lam[k2 + 1, 1], lam[k3 + 1, 1])
+                    u2 = (lam[k0 + 1, 2], lam[k1 + 1, 2], lam[k2 + 1, 2], lam[k3 + 1, 2])
+                    U00 = (Lam[k0 + 1, 0, 0], Lam[k1 + 1, 0, 0], Lam[k2 + 1, 0, 0], Lam[k3 + 1, 0, 0])
+                    U01 = (Lam[k0 + 1, 0, 1], Lam[k1 + 1, 0, 1], Lam[k2 + 1, 0, 1], Lam[k3 + 1, 0, 1])
+                    U02 = (Lam[k0 + 1, 0, 2], Lam[k1 + 1, 0, 2], Lam[k2 + 1, 0, 2], Lam[k3 + 1, 0, 2])
+                    U11 = (Lam[k0 + 1, 1, 1], Lam[k1 + 1, 1, 1], Lam[k2 + 1, 1, 1], Lam[k3 + 1, 1, 1])
+                    U12 = (Lam[k0 + 1, 1, 2], Lam[k1 + 1, 1, 2], Lam[k2 + 1, 1, 2], Lam[k3 + 1, 1, 2])
+                    U22 = (Lam[k0 + 1, 2, 2], Lam[k1 + 1, 2, 2], Lam[k2 + 1, 2, 2], Lam[k3 + 1, 2, 2])
+                    vmean = vfma(cc0, u0, vfma(cc1, u1, vfma(cc2, u2, mq)))
+                    y0 = vfma(U00, cc0, vfma(U01, cc1, vmul(U02, cc2)))
+                    y1 = vfma(U01, cc0, vfma(U11, cc1, vmul(U12, cc2)))
+                    y2 = vfma(U02, cc0, vfma(U12, cc1, vmul(U22, cc2)))
+                    vvar = vsub(p0, vfma(cc0, y0, vfma(cc1, y1, vmul(cc2, y2))))
                     vstore(out_mean, i, vmean)
                     vstore(out_var, i, vmax0(vvar))
                     b += 4
                     continue
             # one query at a time: chunk tails, and queries outside the data span
             k = idx[i]
-            if k < 0:
-                sm0 = 0.0
-                sm1 = 0.0
-                sm2 = 0.0
-                sp00 = pf00
-                sp01 = pf01
-                sp02 = pf02
-                sp11 = pf11
-                sp12 = pf12
-                sp22 = pf22
-            else:
-                # after the last time the smoothed state, else the filtered one (no views:
-                # a view per query would cost reference-count updates)
-                src_m = ms if k == n - 1 else mf
-                src_P = Ps if k == n - 1 else Pf
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a02 = work[ROW_A + 2, b]
-                a10 = work[ROW_A + 3, b]
-                a11 = work[ROW_A + 4, b]
-                a12 = work[ROW_A + 5, b]
-                a20 = work[ROW_A + 6, b]
-                a21 = work[ROW_A + 7, b]
-                a22 = work[ROW_A + 8, b]
-                qq00 = src_P[k, 0, 0] - pf00
-                qq01 = src_P[k, 0, 1] - pf01
-                qq02 = src_P[k, 0, 2] - pf02
-                qq11 = src_P[k, 1, 1] - pf11
-                qq12 = src_P[k, 1, 2] - pf12
-                qq22 = src_P[k, 2, 2] - pf22
-                w00 = a00 * qq00 + a01 * qq01 + a02 * qq02
-                w01 = a00 * qq01 + a01 * qq11 + a02 * qq12
-                w02 = a00 * qq02 + a01 * qq12 + a02 * qq22
-                w10 = a10 * qq00 + a11 * qq01 + a12 * qq02
-                w11 = a10 * qq01 + a11 * qq11 + a12 * qq12
-                w12 = a10 * qq02 + a11 * qq12 + a12 * qq22
-                w20 = a20 * qq00 + a21 * qq01 + a22 * qq02
-                w21 = a20 * qq01 + a21 * qq11 + a22 * qq12
-                w22 = a20 * qq02 + a21 * qq12 + a22 * qq22
-                sp00 = w00 * a00 + w01 * a01 + w02 * a02
-                sp01 = w00 * a10 + w01 * a11 + w02 * a12
-                sp02 = w00 * a20 + w01 * a21 + w02 * a22
-                sp11 = w10 * a10 + w11 * a11 + w12 * a12
-                sp12 = w10 * a20 + w11 * a21 + w12 * a22
-                sp22 = w20 * a20 + w21 * a21 + w22 * a22
-                sp00 += pf00
-                sp01 += pf01
-                sp02 += pf02
-                sp11 += pf11
-                sp12 += pf12
-                sp22 += pf22
-                sm0 = a00 * src_m[k, 0] + a01 * src_m[k, 1] + a02 * src_m[k, 2]
-                sm1 = a10 * src_m[k, 0] + a11 * src_m[k, 1] + a12 * src_m[k, 2]
-                sm2 = a20 * src_m[k, 0] + a21 * src_m[k, 1] + a22 * src_m[k, 2]
-            mean = sm0
-            var = sp00
+            a00 = work[ROW_A + 0, b]
+            a01 = work[ROW_A + 1, b]
+            a02 = work[ROW_A + 2, b]
+            a10 = work[ROW_A + 3, b]
+            a11 = work[ROW_A + 4, b]
+            a12 = work[ROW_A + 5, b]
+            a20 = work[ROW_A + 6, b]
+            a21 = work[ROW_A + 7, b]
+            a22 = work[ROW_A + 8, b]
+            if k >= 0:
+                qq00 = Pf[k, 0, 0] - pf00
+                qq01 = Pf[k, 0, 1] - pf01
+                qq02 = Pf[k, 0, 2] - pf02
+                qq11 = Pf[k, 1, 1] - pf11
+                qq12 = Pf[k, 1, 2] - pf12
+                qq22 = Pf[k, 2, 2] - pf22
+                fm0 = mf[k, 0]
+                fm1 = mf[k, 1]
+                fm2 = mf[k, 2]
+            else:  # before the first time: the prior
+                qq00 = 0.0
+                qq01 = 0.0
+                qq02 = 0.0
+                qq11 = 0.0
+                qq12 = 0.0
+                qq22 = 0.0
+                fm0 = 0.0
+                fm1 = 0.0
+                fm2 = 0.0
+            w0 = qq00 * a00 + qq01 * a01 + qq02 * a02
+            w1 = qq01 * a00 + qq11 * a01 + qq12 * a02
+            w2 = qq02 * a00 + qq12 * a01 + qq22 * a02
+            p0 = pf00 + a00 * w0 + a01 * w1 + a02 * w2
+            p1 = pf01 + a10 * w0 + a11 * w1 + a12 * w2
+            p2 = pf02 + a20 * w0 + a21 * w1 + a22 * w2
+            mq = a00 * fm0 + a01 * fm1 + a02 * fm2
+            mean = mq
+            var = p0
             if k < n - 1:
                 e00 = work[ROW_A + 9 + 0, b]
                 e01 = work[ROW_A + 9 + 1, b]
@@ -5506,62 +5127,14 @@ def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, smoothed, out_mean, o
                 e20 = work[ROW_A + 9 + 6, b]
                 e21 = work[ROW_A + 9 + 7, b]
                 e22 = work[ROW_A + 9 + 8, b]
-                qq00 = sp00 - pf00
-                qq01 = sp01 - pf01
-                qq02 = sp02 - pf02
-                qq11 = sp11 - pf11
-                qq12 = sp12 - pf12
-                qq22 = sp22 - pf22
-                w00 = e00 * qq00 + e01 * qq01 + e02 * qq02
-                w01 = e00 * qq01 + e01 * qq11 + e02 * qq12
-                w02 = e00 * qq02 + e01 * qq12 + e02 * qq22
-                w10 = e10 * qq00 + e11 * qq01 + e12 * qq02
-                w11 = e10 * qq01 + e11 * qq11 + e12 * qq12
-                w12 = e10 * qq02 + e11 * qq12 + e12 * qq22
-                w20 = e20 * qq00 + e21 * qq01 + e22 * qq02
-                w21 = e20 * qq01 + e21 * qq11 + e22 * qq12
-                w22 = e20 * qq02 + e21 * qq12 + e22 * qq22
-                pp00 = w00 * e00 + w01 * e01 + w02 * e02
-                pp01 = w00 * e10 + w01 * e11 + w02 * e12
-                pp02 = w00 * e20 + w01 * e21 + w02 * e22
-                pp11 = w10 * e10 + w11 * e11 + w12 * e12
-                pp12 = w10 * e20 + w11 * e21 + w12 * e22
-                pp22 = w20 * e20 + w21 * e21 + w22 * e22
-                pp00 += pf00
-                pp01 += pf01
-                pp02 += pf02
-                pp11 += pf11
-                pp12 += pf12
-                pp22 += pf22
-                dg0 = pp00
-                iv0 = 1.0 / dg0 if dg0 > 0.0 else 0.0
-                l10 = (pp01) * iv0
-                l20 = (pp02) * iv0
-                dg1 = pp11 - l10 * l10 * dg0
-                iv1 = 1.0 / dg1 if dg1 > 0.0 else 0.0
-                l21 = (pp12 - l20 * l10 * dg0) * iv1
-                dg2 = pp22 - l20 * l20 * dg0 - l21 * l21 * dg1
-                iv2 = 1.0 / dg2 if dg2 > 0.0 else 0.0
-                z0 = e00 * sp00 + e01 * sp01 + e02 * sp02
-                z1 = e10 * sp00 + e11 * sp01 + e12 * sp02 - l10 * z0
-                z2 = e20 * sp00 + e21 * sp01 + e22 * sp02 - l20 * z0 - l21 * z1
-                gg20 = z2 * iv2
-                gg10 = z1 * iv1 - l21 * gg20
-                gg00 = z0 * iv0 - l10 * gg10 - l20 * gg20
-                dd0 = ms[k + 1, 0] - (e00 * sm0 + e01 * sm1 + e02 * sm2)
-                dd1 = ms[k + 1, 1] - (e10 * sm0 + e11 * sm1 + e12 * sm2)
-                dd2 = ms[k + 1, 2] - (e20 * sm0 + e21 * sm1 + e22 * sm2)
-                mean += gg00 * dd0 + gg10 * dd1 + gg20 * dd2
-                dp00 = Ps[k + 1, 0, 0] - pp00
-                dp01 = Ps[k + 1, 0, 1] - pp01
-                dp02 = Ps[k + 1, 0, 2] - pp02
-                dp11 = Ps[k + 1, 1, 1] - pp11
-                dp12 = Ps[k + 1, 1, 2] - pp12
-                dp22 = Ps[k + 1, 2, 2] - pp22
-                y0 = dp00 * gg00 + dp01 * gg10 + dp02 * gg20
-                y1 = dp01 * gg00 + dp11 * gg10 + dp12 * gg20
-                y2 = dp02 * gg00 + dp12 * gg10 + dp22 * gg20
-                var += gg00 * y0 + gg10 * y1 + gg20 * y2
+                cc0 = e00 * p0 + e01 * p1 + e02 * p2
+                cc1 = e10 * p0 + e11 * p1 + e12 * p2
+                cc2 = e20 * p0 + e21 * p1 + e22 * p2
+                mean += cc0 * lam[k + 1, 0] + cc1 * lam[k + 1, 1] + cc2 * lam[k + 1, 2]
+                y0 = Lam[k + 1, 0, 0] * cc0 + Lam[k + 1, 0, 1] * cc1 + Lam[k + 1, 0, 2] * cc2
+                y1 = Lam[k + 1, 1, 0] * cc0 + Lam[k + 1, 1, 1] * cc1 + Lam[k + 1, 1, 2] * cc2
+                y2 = Lam[k + 1, 2, 0] * cc0 + Lam[k + 1, 2, 1] * cc1 + Lam[k + 1, 2, 2] * cc2
+                var -= cc0 * y0 + cc1 * y1 + cc2 * y2
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1

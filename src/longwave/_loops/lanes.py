@@ -14,8 +14,7 @@ Functions (all elementwise on 4-tuples of float64):
 - ``vsplat(x)``: ``(x, x, x, x)``;
 - ``vadd(a, b)``, ``vsub(a, b)``, ``vmul(a, b)``, ``vfma(a, b, c) = a * b + c``
   (fused, one rounding);
-- ``vrecip_pos(a)``: ``1 / a`` where ``a > 0``, else 0 (a pivot without
-  variance gets no weight); ``vmax0(a)``: ``max(a, 0)``;
+- ``vmax0(a)``: ``max(a, 0)``;
 - ``vload(arr, i)``: ``arr[i:i + 4]`` of a C-contiguous float64 array;
   ``vstore(arr, i, v)`` writes it back. No bounds checks.
 """
@@ -99,19 +98,12 @@ def _unary(build):
     return typer
 
 
-def _recip_pos(builder, x, zero):
-    one = ir.Constant(_LLVEC, [1.0] * WIDTH)
-    positive = builder.fcmp_ordered(">", x, zero)
-    return builder.select(positive, builder.fdiv(one, x), zero)
-
-
 def _max0(builder, x, zero):
     # NaN stays NaN (unordered compare keeps x)
     negative = builder.fcmp_ordered("<", x, zero)
     return builder.select(negative, zero, x)
 
 
-vrecip_pos = intrinsic(_unary(_recip_pos))
 vmax0 = intrinsic(_unary(_max0))
 
 

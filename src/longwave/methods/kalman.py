@@ -2,11 +2,13 @@
 
 The Kalman filter gives the log marginal likelihood from the innovations
 (prediction-error decomposition); forward sensitivities of the filter give
-its analytic gradient in the same pass; the RTS smoother gives the posterior
-(Hartikainen & Särkkä 2010; Särkkä 2013, "Bayesian Filtering and
-Smoothing", ch. 4 and 8). The posterior at arbitrary times is computed from
-the stored filter and smoother states, one O(d^3) step per query time, so a
-prediction grid of any size costs O(n + n*) and can be produced in chunks.
+its analytic gradient in the same pass; a backward smoother gives the
+posterior (Hartikainen & Särkkä 2010; Särkkä 2013, "Bayesian Filtering and
+Smoothing", ch. 4 and 8): the RTS form in the general loops, the adjoint
+(modified Bryson-Frazier; Bierman 1977) form in the loops specialised to
+d <= 3. The posterior at arbitrary times is computed from the filter's and
+the smoother's quantities, one O(d^2) step per query time, so a prediction
+grid of any size costs O(n + n*) and can be produced in chunks.
 """
 
 from __future__ import annotations
@@ -220,18 +222,25 @@ def _sensitivities(model, dpinf_kernel, dtrans_kernel):
 
 
 class KalmanPosterior(Posterior):
-    """Filtered states at the data times; smoothed states are recomputed per block.
+    """The filter's output at the data times; the smoother's is recomputed per block.
 
-    Memory is ``n (d + d^2)`` doubles for the filtered states plus one
-    smoothed state per ``block`` points (d is the state dimension: 2 for
-    Matérn-3/2), so 480 MB for n = 1e7, half of keeping both passes. A query
-    needs the filtered state before it and the smoothed state after it; the
-    smoothed states of a block are rebuilt from the checkpoint at the block's
-    end by the same RTS recursion, so predictions equal those of a full
-    smoother pass exactly, at O(block) extra work per block a prediction
-    touches (``kalman_sweep.py``). The checkpoints come from one backward pass
-    over all blocks, run by the first prediction, which predicts its own
-    queries block by block on the way.
+    A query needs the filtered state before it and the smoother's quantity
+    after it (``kalman_sweep.py``): the smoothed state for the general loops
+    (RTS), the adjoint for the specialised ones (d <= 3), whose recursion
+    reads only ``d + 2`` numbers a point that the filter stores (``obs``).
+    The smoother's quantities of a block are rebuilt from a checkpoint at the
+    block's end, so predictions equal those of a full smoother pass exactly,
+    at O(block) extra work per block a prediction touches. The checkpoints
+    come from one backward pass over all blocks, run by the first
+    prediction, which predicts its own queries block by block on the way.
+
+    Memory, with d the state dimension (2 for Matérn-3/2): the general loops
+    store every filtered state, ``n (d + d^2)`` doubles. The specialised ones
+    store ``obs`` (``n (d + 2)`` doubles) and either every filtered state too
+    or, when those do not fit ``kalman_states_mb`` (``lean``), one per block,
+    re-running the filter over a block when a prediction needs its states.
+    So a Matérn-5/2 posterior of n = 1e7 takes 400 MB (lean) rather than
+    1.4 GB.
 
     On two cores a long series is built in two halves at once: the left half
     filtered forwards, the right half backwards in time, joined at one state
@@ -250,12 +259,18 @@ class KalmanPosterior(Posterior):
         agree with the general loops to rounding. The stored states are then in
         the basis of :class:`FastForm` (first component observed).
     keep : bool, optional
-        From the second prediction on, keep every block's smoothed states, so
-        that later predictions skip the smoother (``n (d + d^2)`` more doubles).
-        Default: when they fit ``keep_smoothed_mb`` (``longwave._config``).
-        Not on the first prediction: a posterior predicted once (the common
-        case) then touches no more memory than it needs, and fresh memory is
-        slow to touch on virtual machines.
+        From the second prediction on, keep every block's smoothed states
+        (and recomputed filtered states), so that later predictions skip the
+        smoother. Default: when ``2 n (d + d^2)`` doubles fit
+        ``kalman_states_mb`` (``longwave._config``). Not on the first
+        prediction: a posterior predicted once (the common case) then touches
+        no more memory than it needs, and fresh memory is slow to touch on
+        virtual machines.
+    lean : bool, optional
+        Specialised loops only. Store the filtered state once per block and
+        recompute a block's states from there when a prediction needs them
+        (one more filter pass per prediction), instead of storing every state.
+        Default: when ``n (d + d^2)`` doubles do not fit ``kalman_states_mb``.
     split : bool, optional
         Build in two halves on two threads. Default: when ``fast`` applies,
         the series has at least ``split_min_n`` points and numba may use two
@@ -270,7 +285,8 @@ class KalmanPosterior(Posterior):
         Index of the last data point of the left half, None when built in one pass.
     """
 
-    def __init__(self, model, series, block=None, fast=False, keep=None, split=None):
+    def __init__(self, model, series, block=None, fast=False, keep=None, split=None,
+                 lean=None):
         super().__init__(model, series)
         ss = model.kernel.state_space()
         self._ss = ss
@@ -282,9 +298,10 @@ class KalmanPosterior(Posterior):
             self._pinf, self._trans = form.pinf, form.trans
         n, d = series.n, ss.dim
         config = settings()
-        self._block = int(block or config.chunk_size)
-        self._may_keep = (n * (d + d * d) * 8 <= config.keep_smoothed_mb * 2**20
-                          if keep is None else bool(keep))
+        self._block = max(int(block or config.chunk_size), 2)  # checkpoints need 2
+        states, budget = n * (d + d * d) * 8, config.kalman_states_mb * 2**20
+        self._lean = form is not None and (states > budget if lean is None else bool(lean))
+        self._may_keep = 2 * states <= budget if keep is None else bool(keep)
         if split is None:
             split = form is not None and n >= config.split_min_n and numba.get_num_threads() >= 2
         elif split and form is None:
@@ -303,13 +320,18 @@ class KalmanPosterior(Posterior):
         return t, y, err
 
     def _loops(self, serial):
-        """The ``(smooth, predict)`` callables of a :class:`Sweep`, with their own scratch."""
+        """The ``(smooth, predict)`` callables of a :class:`Sweep`, with their own scratch.
+
+        The general loops smooth by RTS (the sweep's backward quantities are
+        smoothed states); the specialised ones by the adjoint recursion, which
+        reads only the observation terms the filter stored (``_loops/kalman_fast.py``).
+        """
         pinf, trans, form = self._pinf, self._trans, self._form
         if form is None:
             H = self._ss.H
 
-            def smooth(t, mf, Pf, ms, Ps):  # the general smoother starts from mf[-1]
-                m_in, P_in = mf.copy(), Pf.copy()
+            def smooth(t, filt, ms, Ps):  # the general smoother starts from mf[-1]
+                m_in, P_in = filt[0].copy(), filt[1].copy()
                 m_in[-1], P_in[-1] = ms[-1], Ps[-1]
                 loops.smooth(t, pinf, trans, m_in, P_in, ms, Ps)
 
@@ -317,72 +339,130 @@ class KalmanPosterior(Posterior):
                 loops.predict_between(tq, iq, t, H, pinf, trans, filt, smoothed, m_out, v_out)
 
             return smooth, predict
-        work = form.work(2)
-        smooth_loop = form.loop("smooth")
+        work = form.work(1)
+        adjoint_loop = form.loop("adjoint")
         predict_loop = form.loop("predict_serial" if serial else "predict")
 
-        def smooth(t, mf, Pf, ms, Ps):
-            smooth_loop(t, pinf, trans, work, mf, Pf, ms, Ps)
+        def smooth(t, filt, lam, Lam):
+            adjoint_loop(t, pinf, trans, work, filt[0], lam, Lam)
 
-        def predict(tq, iq, t, filt, smoothed, m_out, v_out):
-            predict_loop(tq, iq, t, pinf, trans, filt, smoothed, m_out, v_out)
+        def predict(tq, iq, t, filtered, adj, m_out, v_out):
+            predict_loop(tq, iq, t, pinf, trans, filtered, adj, m_out, v_out)
 
         return smooth, predict
 
-    def _filter(self, data, mf, Pf):
-        """Filtered states of ``data = (t, y, err)`` into ``mf``, ``Pf``."""
-        model, form = self.model, self._form
+    def _filter(self, data, rows=None):
+        """Filter ``data = (t, y, err)``: the arrays a :class:`Sweep` keeps of it.
+
+        General loops: filtered means and covariances ``(mf, Pf)``. Specialised
+        loops: the observation terms ``(obs,)`` and, apart, checkpoints of the
+        filtered state every block (``filter_store`` in ``_loops/kalman_fast.py``),
+        whose last row is the state at the last point. ``rows`` (at least the
+        length of ``data``) sizes the arrays; rows past the data stay zero.
+        """
+        model, form, d = self.model, self._form, self._ss.dim
+        t, y, err = data
+        m = t.size
+        rows = m if rows is None else rows
         if form is None:
-            t, y, err = data
+            mf, Pf = np.zeros((rows, d)), np.zeros((rows, d, d))
             loops.filter_store(t, y - model.mean_value, model.noise_variance(err),
-                               self._ss.H, self._pinf, self._trans, mf, Pf)
-            return
+                               self._ss.H, self._pinf, self._trans, mf[:m], Pf[:m])
+            return (mf, Pf), None
+        obs = np.zeros((rows, d + 2))
+        stride = self._block if self._lean else 1
+        nck = m // stride + 2
+        ckpt = (np.zeros((nck, d)), np.zeros((nck, d, d)))
         scal = (float(model.mean_value), float(model.excess_variance))
-        form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2), mf, Pf)
+        form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2),
+                                  obs[:m], *ckpt, stride)
+        return (obs,), ckpt
+
+    def _forward(self, data, ckpt):
+        """``Sweep``'s ``forward``: a block's filtered states, recomputed from its checkpoint."""
+        if ckpt is None:
+            return None
+        if not self._lean:  # every state stored: row i + 1 holds point i
+            return lambda lo, end, out: (ckpt[0][lo + 1:end + 1], ckpt[1][lo + 1:end + 1])
+        model, form, block = self.model, self._form, self._block
+        scal = (float(model.mean_value), float(model.excess_variance))
+        loop, work = form.loop("refilter"), form.work(1)
+
+        def forward(lo, end, out):
+            c = 0 if lo == 0 else (lo + 1) // block  # lo is 0 or one before a block start
+            mf, Pf = out[0][:end - lo], out[1][:end - lo]
+            mf[0], Pf[0] = ckpt[0][c], ckpt[1][c]
+            loop(tuple(a[lo:end] for a in data), scal, self._pinf, self._trans, work, mf, Pf)
+            return mf, Pf
+
+        return forward
+
+    def _terminal(self, filt):
+        """The backward quantity at the last point of a whole series."""
+        if self._form is None:  # RTS: the smoothed state there is the filtered one
+            return filt[0][-1], filt[1][-1]
+        d = self._ss.dim
+        u, U = np.zeros(d), np.zeros((d, d))
+        u[0], U[0, 0] = filt[0][-1, 0], filt[0][-1, 1]  # v / s, 1 / s of its observation
+        return u, U
 
     def _build_whole(self):
-        n, d = self.series.n, self._ss.dim
-        filt = (np.empty((n, d)), np.empty((n, d, d)))
-        self._filter(self._data(), *filt)
-        return Sweep(self.series.t, filt, None, *self._loops(serial=False),
-                     self._block, self._may_keep)
+        data = self._data()
+        filt, ckpt = self._filter(data)
+        return Sweep(self.series.t, filt, self._terminal(filt), *self._loops(serial=False),
+                     self._block, self._may_keep, forward=self._forward(data, ckpt))
 
     def _build_split(self):
-        """The two halves (left sweep, reversed right sweep), or None (see ``split``)."""
+        """The two halves (left sweep, reversed right sweep), or None (see ``split``).
+
+        The left half holds points ``0 .. j`` and, one row beyond, time
+        ``t[j + 1]`` with the adjoint there; the right half (reversed) holds
+        points ``n - 1 .. j + 1`` and, one row beyond, time ``-t[j]`` with
+        its adjoint. Each adjoint comes from the smoothed state at that
+        point (the two-filter join) and the half's own prediction across the
+        gap (:func:`kalman_split.adjoint`).
+        """
         pinf, trans = self._pinf, self._trans
         s_map = kalman_split.reversal(pinf, trans)
         j = kalman_split.split_index(self.series.t)
         if s_map is None or j is None:
             return None
-        n, d = self.series.n, self._ss.dim
-        left = (np.empty((j + 1, d)), np.empty((j + 1, d, d)))
-        # Right half reversed: points n-1 .. j+1 filtered, then point j, whose
-        # slot holds the joined state (the smoother starts there; never filtered).
-        t_right, y_right, err_right = self._data(j, reverse=True)
-        right = (np.empty((n - j, d)), np.empty((n - j, d, d)))
-        kalman_split.in_two_threads(
-            lambda: self._filter(self._data(0, j + 1), *left),
-            lambda: self._filter((t_right[:-1], y_right[:-1], err_right[:-1]),
-                                 right[0][:-1], right[1][:-1]),
+        n, t = self.series.n, self.series.t
+        # The left half's data run one point past it (to the time of its last row).
+        data_left = self._data(0, j + 2)
+        data_right = self._data(j, reverse=True)
+        (left, ck_left), (right, ck_right) = kalman_split.in_two_threads(
+            lambda: self._filter(tuple(x[:-1] for x in data_left), rows=j + 2),
+            lambda: self._filter(tuple(x[:-1] for x in data_right), rows=n - j),
         )
-        # The right side's estimate of the state at t[j]: one prediction step
-        # backwards from t[j + 1], mapped from the reversed basis by S.
-        a = closed_transition(*trans, np.asarray(self.series.t[j + 1] - self.series.t[j]))
-        m_back = a @ right[0][n - j - 2]
-        P_back = a @ (right[1][n - j - 2] - pinf) @ a.T + pinf
-        joined = kalman_split.join((left[0][j], left[1][j]),
-                            (s_map @ m_back, s_map @ P_back @ s_map.T), pinf)
-        if joined is None:
-            return None
+        a = closed_transition(*trans, np.asarray(t[j + 1] - t[j]))
+
+        def across_gap(m, P):  # one prediction step over the gap
+            return a @ m, a @ (P - pinf) @ a.T + pinf
+
+        def mapped(m, P):  # from the reversed basis
+            return s_map @ m, s_map @ P @ s_map.T
+
         s_inv = np.linalg.inv(s_map)
-        right[0][-1] = s_inv @ joined[0]
-        right[1][-1] = s_inv @ joined[1] @ s_inv.T
+        at_j = (ck_left[0][-1], ck_left[1][-1])  # filtered from the left, including point j
+        after_j = (ck_right[0][-1], ck_right[1][-1])  # from the right (point j + 1), reversed basis
+        back_to_j = across_gap(*after_j)  # the right half's prediction at t[j]
+        ahead_to_next = across_gap(*at_j)  # the left half's prediction at t[j + 1]
+        joined_j = kalman_split.join(at_j, mapped(*back_to_j), pinf)
+        joined_next = kalman_split.join(ahead_to_next, mapped(*after_j), pinf)
+        if joined_j is None or joined_next is None:
+            return None
+        left_end = kalman_split.adjoint(ahead_to_next, joined_next)
+        right_end = kalman_split.adjoint(
+            back_to_j, (s_inv @ joined_j[0], s_inv @ joined_j[1] @ s_inv.T))
+        if left_end is None or right_end is None:
+            return None
         self.split_at = int(j)
         return (
-            Sweep(self.series.t[:j + 1], left, joined, *self._loops(serial=True),
-                  self._block, self._may_keep, serial=True),
-            Sweep(t_right, right, (right[0][-1], right[1][-1]), *self._loops(serial=True),
-                  self._block, self._may_keep, serial=True),
+            Sweep(data_left[0], left, left_end, *self._loops(serial=True), self._block,
+                  self._may_keep, serial=True, forward=self._forward(data_left, ck_left)),
+            Sweep(data_right[0], right, right_end, *self._loops(serial=True), self._block,
+                  self._may_keep, serial=True, forward=self._forward(data_right, ck_right)),
         )
 
     def _latent(self, t):

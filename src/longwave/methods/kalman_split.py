@@ -179,6 +179,39 @@ def join(forward, backward, pinf):
     return chol @ mean, chol @ P @ chol.T
 
 
+def adjoint(prediction, smoothed):
+    """The adjoint at a state, from the filter's prediction there and its smoothed law.
+
+    The adjoint smoother (``_loops/kalman_fast.py``) carries
+    ``u = Pp^-1 (ms - mp)`` and ``U = Pp^-1 (Pp - Ps) Pp^-1``; a half of a
+    split series starts from these, one step beyond its last point, where
+    the prediction ``(mp, Pp)`` crosses the gap between the halves (its
+    process noise keeps ``Pp`` well conditioned).
+
+    Returns
+    -------
+    tuple of ndarray or None
+        ``(u, U)``; None when ``mp + Pp u`` and ``Pp - Pp U Pp`` miss the
+        smoothed mean and covariance by more than ``_JOIN_TOL`` of their
+        standard deviations.
+    """
+    mp, Pp = prediction
+    ms, Ps = smoothed
+    try:
+        u = np.linalg.solve(Pp, ms - mp)
+        U = np.linalg.solve(Pp, np.linalg.solve(Pp, Pp - Ps).T)
+    except np.linalg.LinAlgError:
+        return None
+    U = 0.5 * (U + U.T)
+    sd = np.sqrt(np.maximum(np.diag(Ps), 0.0))
+    if not (np.all(np.isfinite(u)) and np.all(np.isfinite(U))):
+        return None
+    if (np.any(np.abs(mp + Pp @ u - ms) > _JOIN_TOL * sd)
+            or np.any(np.abs(Pp - Pp @ U @ Pp - Ps) > _JOIN_TOL * np.outer(sd, sd))):
+        return None
+    return u, U
+
+
 def in_two_threads(first, second):
     """Run ``first()`` here and ``second()`` in a thread; return both results.
 

@@ -1,18 +1,22 @@
-"""One direction of a Kalman posterior: stored filter states, smoothed block by block.
+"""One direction of a Kalman posterior: stored filter output, smoothed block by block.
 
-A :class:`Sweep` holds the filtered states of a run of sorted times and the
-smoothed state at its last time (the filtered one for a whole series; a
-joined state when the series was split, see ``kalman_split.py``). From these
-it answers queries: the smoothed states of a block are rebuilt from the
-checkpoint at the block's end by the RTS recursion, so memory stays at the
-filtered states plus one state per block, and the predictions equal those
-of one full smoother pass exactly. The first prediction runs the backward
-pass over all blocks, predicting its own queries on the way and recording
-the checkpoints.
+A :class:`Sweep` holds the filter output of a run of sorted times and the
+backward quantity at its last time. That quantity is what the smoother
+carries: the smoothed state (mean and covariance) for the general loops'
+RTS smoother, the adjoint (a vector and a matrix of the same shapes) for the
+adjoint smoother of the loops specialised to d <= 3. From these it answers
+queries: the backward quantities of a block are rebuilt from the checkpoint
+at the block's end, so memory stays at the filter output plus one state per
+block, and the predictions equal those of one full smoother pass exactly.
+The filtered states a block's queries start from come from a ``forward``
+callable: slices of stored states, or (specialised loops) states
+recomputed from a checkpoint of the filter at the block's start, so that
+per point only the filter's observation terms are kept.
+The first prediction runs the backward pass over all blocks, predicting its
+own queries on the way and recording the checkpoints.
 
 A sweep knows its loops only as two callables built by the posterior, so the
-same code serves the general loops (any state dimension) and the ones
-specialised to d <= 3 (``_loops/kalman_fast.py``).
+same code serves both smoothers.
 """
 
 from __future__ import annotations
@@ -23,38 +27,45 @@ from .._loops import search
 
 
 class Sweep:
-    """Filtered states over sorted times ``t``, smoothed per block on demand.
+    """Filter output over sorted times ``t``, smoothed per block on demand.
 
     Parameters
     ----------
     t : ndarray of shape (n,)
         Sorted times.
     filt : tuple of ndarray
-        Filtered means (n, d) and covariances (n, d, d); entry ``n - 1`` is
-        not read when ``terminal`` is given.
-    terminal : tuple of ndarray or None
-        Smoothed mean (d,) and covariance (d, d) at ``t[-1]``; None means the
-        filtered state there (a whole series).
+        The filter's output, each of first axis n: filtered means (n, d) and
+        covariances (n, d, d) first, then whatever else the smoother reads.
+    terminal : tuple of ndarray
+        The backward quantity at ``t[-1]``: vector (d,) and matrix (d, d).
     smooth : callable
-        ``smooth(t, mf, Pf, ms, Ps)``: RTS recursion over a window, starting
-        from what ``ms[-1]``, ``Ps[-1]`` hold.
+        ``smooth(t, filt, ms, Ps)``: the backward recursion over a window
+        (``filt`` sliced to it), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
     predict : callable
         ``predict(tq, iq, t, filt, smoothed, mean_out, var_out)`` for queries
         whose window indices ``iq`` are the last data point at or before them.
     block : int
         Points per smoother block.
     may_keep : bool
-        Keep every block's smoothed states from the second prediction on.
+        Keep every block's backward quantities (and filtered states, when
+        ``forward`` recomputes them) from the second prediction on.
     serial : bool, default False
         Locate queries in the calling thread (for sweeps run two at once in
         threads; ``predict`` must then be serial too).
+    forward : callable, optional
+        ``forward(lo, end, out)``: filtered means and covariances at indices
+        ``lo:end`` (``lo`` is 0 or one before a block start), written into
+        ``out`` (arrays of at least ``end - lo`` rows) or returned as views.
+        Default: slices of ``filt[0]``, ``filt[1]``.
     """
 
-    def __init__(self, t, filt, terminal, smooth, predict, block, may_keep, serial=False):
+    def __init__(self, t, filt, terminal, smooth, predict, block, may_keep, serial=False,
+                 forward=None):
         self.t = t
         self.filt = filt
-        n, d = filt[0].shape
-        self.terminal = terminal if terminal is not None else (filt[0][n - 1], filt[1][n - 1])
+        n, d = t.size, terminal[0].shape[0]
+        self.terminal = terminal
+        self._forward = forward
         self._smooth, self._predict = smooth, predict
         self._serial = bool(serial)
         self.block = int(block)
@@ -63,8 +74,12 @@ class Sweep:
         self.ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
         self.have_ckpt = False
         self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
+        # Buffers of the blocks not kept, reused block after block: memory that
+        # is touched again costs no page faults, which are slow on virtual machines.
+        self._scratch = {}
         self.may_keep = bool(may_keep)
-        self.kept = {}  # (lo, end) -> smoothed states, filled from the second prediction on
+        # (lo, end) -> (filtered, backward) of a block, filled from the second prediction on
+        self.kept = {}
 
     @property
     def n(self) -> int:
@@ -73,33 +88,58 @@ class Sweep:
     def _block_end(self, j):
         return int(self.starts[j + 1]) if j + 1 < self.starts.size else self.n
 
+    def _buffers(self, key, d):
+        if key not in self._scratch:
+            rows = min(self.block + 2, self.n)
+            self._scratch[key] = (np.empty((rows, d)), np.empty((rows, d, d)))
+        return self._scratch[key]
+
     def smoothed(self, lo, end):
-        """Smoothed means (end - lo, d) and covariances at indices ``lo:end``.
+        """Backward vectors (end - lo, d) and matrices at indices ``lo:end``.
 
         ``end`` is a block start (whose checkpoint is known) or ``n``.
         """
         kept = self.kept.get((lo, end))
         if kept is not None:
-            return kept
+            return kept[1]
+        keep = self.may_keep and self.have_ckpt  # a later prediction: worth keeping
         cached = self._cache
         if cached is not None and cached[0] == lo and cached[1] == end:
             ms, Ps = cached[2], cached[3]
+            if keep:  # they may live in a scratch buffer
+                ms, Ps = ms.copy(), Ps.copy()
         else:
-            mf, Pf = self.filt
+            d = self.terminal[0].shape[0]
             hi = min(end + 1, self.n)
-            ms = np.empty((hi - lo,) + mf.shape[1:])
-            Ps = np.empty((hi - lo,) + Pf.shape[1:])
+            if keep:
+                ms, Ps = np.empty((hi - lo, d)), np.empty((hi - lo, d, d))
+            else:
+                ms, Ps = (a[:hi - lo] for a in self._buffers("backward", d))
             if end >= self.n:
                 ms[-1], Ps[-1] = self.terminal
             else:
                 j = end // self.block
                 ms[-1], Ps[-1] = self.ckpt[0][j], self.ckpt[1][j]
-            self._smooth(self.t[lo:hi], mf[lo:hi], Pf[lo:hi], ms, Ps)
+            self._smooth(self.t[lo:hi], tuple(a[lo:hi] for a in self.filt), ms, Ps)
             ms, Ps = ms[:end - lo], Ps[:end - lo]
         self._cache = (lo, end, ms, Ps)
-        if self.may_keep and self.have_ckpt:  # a later prediction: worth keeping
-            self.kept[(lo, end)] = (ms, Ps)
+        if keep:
+            self.kept[(lo, end)] = (self._filtered(lo, end, fresh=True), (ms, Ps))
         return ms, Ps
+
+    def _filtered(self, lo, end, fresh=False):
+        """Filtered means and covariances at indices ``lo:end`` (a block's window)."""
+        kept = self.kept.get((lo, end))
+        if kept is not None:
+            return kept[0]
+        if self._forward is None:
+            return self.filt[0][lo:end], self.filt[1][lo:end]
+        d = self.terminal[0].shape[0]
+        if fresh:
+            out = (np.empty((end - lo, d)), np.empty((end - lo, d, d)))
+        else:
+            out = tuple(a[:end - lo] for a in self._buffers("forward", d))
+        return self._forward(lo, end, out)
 
     def latent(self, tq, out=None, known_sorted=False):
         """Posterior mean and variance of the latent process (zero prior mean) at ``tq``.
@@ -158,10 +198,9 @@ class Sweep:
 
     def _predict_block(self, j, tq, idx, m_out, v_out):
         """Queries whose next data point lies in block ``j``; writes ``m_out``, ``v_out``."""
-        mf, Pf = self.filt
         end = self._block_end(j)
         # Window lo:end holds the filtered state before every query of the block.
         lo = max(int(self.starts[j]) - 1, 0)
         smoothed = self.smoothed(lo, end)
-        self._predict(tq, idx - lo, self.t[lo:end], (mf[lo:end], Pf[lo:end]), smoothed,
+        self._predict(tq, idx - lo, self.t[lo:end], self._filtered(lo, end), smoothed,
                       m_out, v_out)
