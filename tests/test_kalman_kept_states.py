@@ -52,7 +52,7 @@ def test_kept_states_give_the_predictions_of_re_smoothing(case, fast):
 
 def test_the_memory_budget_decides_by_default(case, monkeypatch):
     model, series, _ = case
-    assert KalmanPosterior(model, series)._may_keep  # 900 points: well inside 512 MB
+    assert KalmanPosterior(model, series)._may_keep  # 900 points: well inside 128 MB
     monkeypatch.setenv("LONGWAVE_KALMAN_STATES_MB", "1")
     big = Series(np.arange(60_000.0), np.zeros(60_000), 0.1)  # 60000 * 20 doubles = 9.2 MB
     assert not KalmanPosterior(model, big)._may_keep

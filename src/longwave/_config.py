@@ -68,11 +68,15 @@ class Settings:
         once, so memory stays O(m * chunk) whatever n is.
     kalman_states_mb : int
         Memory in MB a Kalman posterior may spend on states at every point
-        (``LONGWAVE_KALMAN_STATES_MB``, default 512: n(d + d^2) doubles fit for
-        n = 5.6e6 at state dimension d = 3). The filtered states are stored
+        (``LONGWAVE_KALMAN_STATES_MB``, default 128: n(d + d^2) doubles fit for
+        n = 1.4e6 at state dimension d = 3). The filtered states are stored
         when they fit, else one checkpoint per chunk and each chunk's states
         recomputed when a prediction needs them; from a second prediction on,
-        every chunk's states are kept when twice that fits.
+        every chunk's states are kept when twice that fits. Small on purpose:
+        on virtual machines, touching fresh memory beyond about 100 MB costs
+        more than the filter pass that recomputing saves (``bench_kalman``:
+        a lean Matérn-5/2 posterior of 1e7 points cost 49 ns a point, a
+        stored Matérn-3/2 one 84, against 58 and 35 at 1e6).
     split_min_n : int
         Shortest series whose Kalman posterior is built in two halves on two
         cores when numba may use two threads (``LONGWAVE_SPLIT_MIN_N``,
@@ -83,7 +87,7 @@ class Settings:
     exact_max_n: int
     chunk_size: int
     sparse_block_mb: int = 16
-    kalman_states_mb: int = 512
+    kalman_states_mb: int = 128
     split_min_n: int = 100_000
 
     def sparse_chunk(self, m: int) -> int:
@@ -97,7 +101,7 @@ def settings() -> Settings:
         exact_max_n=_env_int("LONGWAVE_EXACT_MAX_N", 10_000),
         chunk_size=_env_int("LONGWAVE_CHUNK", 65_536),
         sparse_block_mb=_env_int("LONGWAVE_SPARSE_BLOCK_MB", 16),
-        kalman_states_mb=_env_int("LONGWAVE_KALMAN_STATES_MB", 512),
+        kalman_states_mb=_env_int("LONGWAVE_KALMAN_STATES_MB", 128),
         split_min_n=_env_int("LONGWAVE_SPLIT_MIN_N", 100_000),
     )
 

@@ -639,7 +639,10 @@ def identity(code, d, name):
 
 
 def gen_adjoint(code, tr):
-    """The smoother in adjoint form (modified Bryson-Frazier; Bierman 1977, ch. X).
+    """The smoother in adjoint form (the modified Bryson-Frazier smoother; Bierman 1977,
+    "Factorization Methods for Discrete Sequential Estimation", cited from memory;
+    the recursion below is derived from the RTS form and checked against it in
+    ``tests/test_loops_fast.py``).
 
     Instead of smoothed states it carries, backwards in time, the adjoint
     ``u_k = Pp_k^-1 (ms_k - mp_k)``, ``U_k = Pp_k^-1 (Pp_k - Ps_k) Pp_k^-1``

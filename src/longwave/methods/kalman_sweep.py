@@ -34,16 +34,19 @@ class Sweep:
     t : ndarray of shape (n,)
         Sorted times.
     filt : tuple of ndarray
-        The filter's output, each of first axis n: filtered means (n, d) and
-        covariances (n, d, d) first, then whatever else the smoother reads.
+        What the smoother reads of the filter, each of first axis n: the
+        filtered means (n, d) and covariances (n, d, d) for RTS, the
+        observation terms (n, d + 2) for the adjoint smoother.
     terminal : tuple of ndarray
         The backward quantity at ``t[-1]``: vector (d,) and matrix (d, d).
     smooth : callable
         ``smooth(t, filt, ms, Ps)``: the backward recursion over a window
         (``filt`` sliced to it), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
     predict : callable
-        ``predict(tq, iq, t, filt, smoothed, mean_out, var_out)`` for queries
-        whose window indices ``iq`` are the last data point at or before them.
+        ``predict(tq, iq, t, filtered, smoothed, mean_out, var_out)`` for
+        queries whose window indices ``iq`` are the last data point at or
+        before them; ``filtered`` are the window's filtered means and
+        covariances (see ``forward``).
     block : int
         Points per smoother block.
     may_keep : bool
@@ -56,7 +59,7 @@ class Sweep:
         ``forward(lo, end, out)``: filtered means and covariances at indices
         ``lo:end`` (``lo`` is 0 or one before a block start), written into
         ``out`` (arrays of at least ``end - lo`` rows) or returned as views.
-        Default: slices of ``filt[0]``, ``filt[1]``.
+        Default (RTS): slices of ``filt[0]``, ``filt[1]``.
     """
 
     def __init__(self, t, filt, terminal, smooth, predict, block, may_keep, serial=False,
