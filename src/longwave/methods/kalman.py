@@ -239,8 +239,9 @@ class KalmanPosterior(Posterior):
     store ``obs`` (``n (d + 2)`` doubles) and either every filtered state too
     or, when those do not fit ``kalman_states_mb`` (``lean``), one per block,
     re-running the filter over a block when a prediction needs its states.
-    So a Matérn-5/2 posterior of n = 1e7 takes 400 MB (lean) rather than
-    1.4 GB.
+    So a Matérn-5/2 posterior of n = 1e7 holds 400 MB of observation terms
+    where every filtered state would add 960 MB (a split one also keeps its
+    right half's data reversed: 3 n / 2 doubles).
 
     On two cores a long series is built in two halves at once: the left half
     filtered forwards, the right half backwards in time, joined at one state
