@@ -298,14 +298,7 @@ def gen_loglik(code, tr):
     init_state(code, d)
     code("quad = 0.0", "logsum = 0.0", "prod = 1.0")
     block_loop_head(code, tr)
-    code("if dtr[b] > 0.0:")
-    code.indent()
-    tr.load(code, "a", "b")
-    predict_state(code, d)
-    code.dedent()
-    observe_head(code, d)
-    observe_logdet(code)
-    observe_update(code, d)
+    filter_body(code, tr, lambda code, d: observe_logdet(code))
     code.dedent()
     code.dedent()
     code("logsum += math.log(prod)", "return -0.5 * (logsum + quad + n * LOG_2PI)")
@@ -322,8 +315,19 @@ def store_filtered(code, d, row):
             code(f"Pf[{row}, {b}, {a}] = Pf[{row}, {a}, {b}]")
 
 
-def filter_body(code, tr, store_obs):
-    """One filter step at point i (after ``block_loop_head``); optionally stores ``obs[i]``."""
+def store_obs(code, d):
+    """Write the observation terms of point i (``v / s``, ``1 / s``, ``K``) to ``obs[i]``."""
+    code("obs[i, 0] = g", "obs[i, 1] = inv")
+    for a in range(d):
+        code(f"obs[i, {2 + a}] = h{a} * inv")
+
+
+def filter_body(code, tr, between=None):
+    """One filter step at point i (after ``block_loop_head``).
+
+    ``between(code, d)`` emits what uses the innovation before the update
+    (the log-determinant, the observation terms).
+    """
     d = tr.d
     code("if dtr[b] > 0.0:")
     code.indent()
@@ -331,10 +335,8 @@ def filter_body(code, tr, store_obs):
     predict_state(code, d)
     code.dedent()
     observe_head(code, d)
-    if store_obs:
-        code("obs[i, 0] = g", "obs[i, 1] = inv")
-        for a in range(d):
-            code(f"obs[i, {2 + a}] = h{a} * inv")
+    if between is not None:
+        between(code, d)
     observe_update(code, d)
 
 
@@ -366,7 +368,7 @@ def gen_filter_store(code, tr):
     tr.preamble(code)
     init_state(code, d)
     block_loop_head(code, tr)
-    filter_body(code, tr, store_obs=True)
+    filter_body(code, tr, store_obs)
     code("if i == 0:")
     code.indent()
     store_filtered(code, d, "0")
@@ -401,7 +403,7 @@ def gen_refilter(code, tr):
     for a, b in upper(d):
         code(f"{sym('M', a, b)} = Pf[0, {a}, {b}] - {sym('pf', a, b)}")
     block_loop_head(code, tr, first=1)
-    filter_body(code, tr, store_obs=False)
+    filter_body(code, tr)
     store_filtered(code, d, "i")
     code.dedent()
     code.dedent()
