@@ -57,8 +57,10 @@ def test_the_memory_budget_decides_by_default(case, monkeypatch):
     big = Series(np.arange(60_000.0), np.zeros(60_000), 0.1)  # 60000 * 20 doubles = 9.2 MB
     assert not KalmanPosterior(model, big)._may_keep
     d3 = Model(Matern52(amplitude=1.0, scale=8.0), excess_noise=0.05)
-    assert KalmanPosterior(d3, big, fast=True)._lean  # 60000 * 12 doubles do not fit 1 MB
-    assert not KalmanPosterior(d3, series, fast=True)._lean
+    assert KalmanPosterior(d3, series, fast=True)._lean  # d >= 2: lean at any size
+    d1 = Model(Matern12(amplitude=1.0, scale=8.0), excess_noise=0.05)
+    assert KalmanPosterior(d1, big, fast=True)._lean  # 60000 * 5 doubles do not fit 1 MB
+    assert not KalmanPosterior(d1, series, fast=True)._lean
 
 
 @pytest.mark.parametrize("split", [False, True])
@@ -78,3 +80,37 @@ def test_recomputed_filtered_states_give_the_stored_ones_predictions(case, split
         np.testing.assert_allclose(b.mean, ref.mean, rtol=1e-8, atol=1e-9)
         np.testing.assert_allclose(b.var, ref.var, rtol=1e-8, atol=1e-10)
     assert all(len(sweep.kept) == sweep.starts.size for sweep in lean._sweeps)
+
+
+@pytest.mark.parametrize("split", [False, True])
+def test_compiled_block_pass_equals_the_block_by_block_path(case, split):
+    # A lean posterior answers sorted queries with one compiled pass over the
+    # blocks they need (blocks_pass) and unsorted ones block by block in
+    # Python: the same loops in the same order, so the same numbers to rounding
+    # (the predictor takes four queries at a time where it can, so the order of
+    # the queries moves a few of them between its vector and scalar paths),
+    # whichever blocks a prediction starts from and in whatever order predictions come.
+    _, series, queries = case
+    model = Model(Matern32(amplitude=1.0, scale=8.0) + Matern12(amplitude=0.3, scale=2.0),
+                  mean=0.1, excess_noise=0.05)  # d = 3: the specialised loops
+    sorted_q = np.sort(queries)
+    one_go = KalmanPosterior(model, series, block=64, fast=True, split=split, lean=True,
+                             keep=False)
+    by_block = KalmanPosterior(model, series, block=64, fast=True, split=split, lean=True,
+                               keep=False)
+    assert all(hasattr(sweep.source, "run_blocks") for sweep in one_go._sweeps)
+    ref = by_block.predict(queries)  # unsorted: the Python path, all blocks
+    order = np.argsort(queries, kind="stable")
+    # a late range first (runs from the end), then an early one (from its checkpoint)
+    late, early = sorted_q[sorted_q > 200], sorted_q[sorted_q < 40]
+    for part in (late, early, sorted_q):
+        got = one_go.predict(part)
+        want = by_block.predict(part[::-1])  # reversed: not sorted, the Python path
+        np.testing.assert_allclose(got.mean, want.mean[::-1], rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(got.var, want.var[::-1], rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(one_go.predict(sorted_q).mean, ref.mean[order], rtol=1e-12,
+                               atol=1e-14)
+    exact = Exact().posterior(model, series).predict(sorted_q)
+    np.testing.assert_allclose(got.mean, exact.mean, rtol=1e-8, atol=1e-9)
+    np.testing.assert_allclose(got.var, exact.var, rtol=1e-8, atol=1e-10)
+    assert all(sweep.have_ckpt for sweep in one_go._sweeps)

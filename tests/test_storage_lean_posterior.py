@@ -75,6 +75,6 @@ def test_stored_state_is_filtered_pass_plus_checkpoints(rng):
     series = _series(rng, 1000)
     post = KalmanPosterior(lw.Model(Matern32(amplitude=1.0, scale=5.0)), series, block=100)
     (sweep,) = post._sweeps
-    arrays = [a for pair in (sweep.filt, sweep.ckpt) for a in pair]
+    arrays = [*sweep.source.arrays, *sweep.ckpt]
     # n (d + d^2) doubles for the filter, 10 checkpoints, nothing of size n for the smoother.
     assert sum(a.size for a in arrays) == 1000 * 6 + 10 * 6

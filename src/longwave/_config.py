@@ -67,16 +67,14 @@ class Settings:
         by ``8 m``, capped at ``chunk_size``. A few such blocks are alive at
         once, so memory stays O(m * chunk) whatever n is.
     kalman_states_mb : int
-        Memory in MB a Kalman posterior may spend on states at every point
-        (``LONGWAVE_KALMAN_STATES_MB``, default 128: n(d + d^2) doubles fit for
-        n = 1.4e6 at state dimension d = 3). The filtered states are stored
-        when they fit, else one checkpoint per chunk and each chunk's states
-        recomputed when a prediction needs them; from a second prediction on,
-        every chunk's states are kept when twice that fits. Small on purpose:
-        on virtual machines, touching fresh memory beyond about 100 MB costs
-        more than the filter pass that recomputing saves (``bench_kalman``:
-        a lean Matérn-5/2 posterior of 1e7 points cost 49 ns a point, a
-        stored Matérn-3/2 one 84, against 58 and 35 at 1e6).
+        Memory in MB a Kalman posterior may spend on arrays of length n
+        (``LONGWAVE_KALMAN_STATES_MB``, default 128). The general loops and
+        the specialised ones for d = 1 store the filter's output when it
+        fits; the specialised ones for d >= 2 are lean whatever it is (one
+        state per block, recomputed per block: see ``KalmanPosterior``).
+        From a second prediction on, every block's states are kept when
+        ``2 n (d + d^2)`` doubles fit. Small on purpose: on virtual
+        machines, touching fresh memory costs 0.15 to 2 ms per MB.
     split_min_n : int
         Shortest series whose Kalman posterior is built in two halves on two
         cores when numba may use two threads (``LONGWAVE_SPLIT_MIN_N``,

@@ -341,25 +341,17 @@ def filter_body(code, tr, between=None):
 
 
 def gen_filter_store(code, tr):
-    """The filter for a posterior: what the adjoint smoother reads, and checkpoints.
-
-    A posterior keeps, per point, only the observation terms ``obs`` (``d + 2``
-    numbers); the filtered states are stored every ``stride`` points and
-    recomputed per block from there (:func:`gen_refilter`).
-    """
+    """The filter of a posterior that stores every state and what the adjoint reads."""
     d = tr.d
     code(
         "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf, stride):",
-        f'    """Observation terms of every point and filtered states every ``stride``, d = {d}.',
+        f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf):",
+        f'    """Observation terms and filtered state of every point, d = {d}.',
         "",
         "    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each",
         "    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the",
         "    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.",
-        "    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at",
-        "    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point",
-        "    of every window that ``refilter`` starts from, and at point n - 1 in the",
-        "    last row. ``stride = 1`` stores every state (point i in row i + 1).",
+        "    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.",
         '    """',
     )
     code.indent()
@@ -369,6 +361,39 @@ def gen_filter_store(code, tr):
     init_state(code, d)
     block_loop_head(code, tr)
     filter_body(code, tr, store_obs)
+    store_filtered(code, d, "i")
+    code.dedent()
+    code.dedent()
+    code.dedent()
+
+
+def gen_filter_checkpoints(code, tr):
+    """The filter of a lean posterior: one state per block, nothing per point.
+
+    A lean posterior re-runs the filter over a block (:func:`gen_refilter`)
+    from these checkpoints when it smooths and predicts there, so that it
+    never holds anything of length n but the data.
+    """
+    d = tr.d
+    code(
+        "@njit(cache=True, nogil=True, fastmath={'contract'})",
+        f"def filter_checkpoints_d{d}{tr.suffix}(data, scal, pinf, trans, work, mf, Pf, stride):",
+        f'    """Filtered states every ``stride`` points, d = {d}; returns ``(v / s, 1 / s)``',
+        "    of the last point (its own adjoint).",
+        "",
+        "    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at",
+        "    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point",
+        "    of the window that ``refilter`` starts from), and at point n - 1 in",
+        "    the last row.",
+        '    """',
+    )
+    code.indent()
+    code("t, y, err = data", "mean, excess = scal", "n = t.size", "g = 0.0", "inv = 0.0")
+    load_pinf(code, d)
+    tr.preamble(code)
+    init_state(code, d)
+    block_loop_head(code, tr)
+    filter_body(code, tr)
     code("if i == 0:")
     code.indent()
     store_filtered(code, d, "0")
@@ -380,6 +405,7 @@ def gen_filter_store(code, tr):
     code.dedent()
     code.dedent()
     store_filtered(code, d, "mf.shape[0] - 1")
+    code("return g, inv")
     code.dedent()
 
 
@@ -387,23 +413,30 @@ def gen_refilter(code, tr):
     d = tr.d
     code(
         "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def refilter_d{d}{tr.suffix}(data, scal, pinf, trans, work, mf, Pf):",
-        f'    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = {d}.',
+        f"def refilter_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf, first):",
+        f'    """Observation terms and filtered states of a window, d = {d}.',
         "",
-        "    The same arithmetic as ``filter_store``, so a window started from one of",
-        "    its checkpoints reproduces the states of a whole pass.",
+        "    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).",
+        "    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on",
+        "    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0",
+        "    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a",
+        "    window started from a checkpoint reproduces that pass's numbers.",
         '    """',
     )
     code.indent()
     code("t, y, err = data", "mean, excess = scal", "n = t.size")
     load_pinf(code, d)
     tr.preamble(code)
+    init_state(code, d)
+    code("if first == 1:")
+    code.indent()
     for a in range(d):
         code(f"m{a} = mf[0, {a}]")
     for a, b in upper(d):
         code(f"{sym('M', a, b)} = Pf[0, {a}, {b}] - {sym('pf', a, b)}")
-    block_loop_head(code, tr, first=1)
-    filter_body(code, tr)
+    code.dedent()
+    block_loop_head(code, tr, first="first")
+    filter_body(code, tr, store_obs)
     store_filtered(code, d, "i")
     code.dedent()
     code.dedent()
@@ -943,13 +976,93 @@ def predict_vector_body(code, tr):
     code("vstore(out_mean, i, vmean)", "vstore(out_var, i, vmax0(vvar))")
 
 
+def gen_blocks_pass(code, tr):
+    """A lean posterior's backward pass over a run of blocks, in one compiled call.
+
+    Per block, from the last to the first: the filter re-run from its
+    checkpoint (``refilter``), the adjoint from the next block's start
+    (``adjoint``), then the block's queries (``predict_serial``): the same
+    calls, in the same order, as ``methods/kalman_sweep.py`` makes block by
+    block for sorted queries, without Python between blocks.
+    """
+    d = tr.d
+    sfx = f"_d{d}{tr.suffix}"
+    code(
+        "@njit(cache=True, nogil=True)",
+        f"def blocks_pass{sfx}(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,",
+        "                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):",
+        f'    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = {d}.',
+        "",
+        "    ``data`` may be one point shorter than ``t`` (a split half's last row),",
+        "    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``",
+        "    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if",
+        "    any) is read from ``adj_ckpt`` and that of every block run is written",
+        "    there. ``tq`` are the sorted queries of these blocks with ``idx`` as",
+        "    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at",
+        "    least ``block + 2`` rows.",
+        '    """',
+    )
+    code.indent()
+    code(
+        "obs, mf, Pf, lam, Lam = buffers",
+        "ck_m, ck_P = ckpt",
+        "adj_u, adj_U = adj_ckpt",
+        "n = t.size",
+        "n_data = data[0].size",
+        "qhi = tq.size",
+        "for j in range(j_hi - 1, j_lo - 1, -1):",
+    )
+    code.indent()
+    code(
+        "start = j * block",
+        "end = min(start + block, n)",
+        "lo = max(start - 1, 0)",
+        "hi = min(end + 1, n)",
+        "m = hi - lo",
+        "first = 0",
+        "if lo > 0:  # from the checkpoint at lo, one before the block's start",
+        "    first = 1",
+        "    mf[0] = ck_m[j]",
+        "    Pf[0] = ck_P[j]",
+        "    obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before",
+        "dend = min(hi, n_data)",
+        f"refilter{sfx}((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,",
+        "         trans, work, obs[:m], mf[:m], Pf[:m], first)",
+        "if end >= n:",
+        "    lam[m - 1] = terminal[0]",
+        "    Lam[m - 1] = terminal[1]",
+        "else:",
+        "    lam[m - 1] = adj_u[j + 1]",
+        "    Lam[m - 1] = adj_U[j + 1]",
+        f"adjoint{sfx}(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])",
+        "adj_u[j] = lam[start - lo]",
+        "adj_U[j] = Lam[start - lo]",
+        "# this block's queries: those whose next data point lies in it",
+        "qlo = qhi",
+        "if j == 0:",
+        "    qlo = 0",
+        "else:",
+        "    while qlo > 0 and idx[qlo - 1] >= start - 1:",
+        "        qlo -= 1",
+        "if qhi > qlo:",
+        "    w = end - lo",
+        f"    predict_serial{sfx}(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,",
+        "                 (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),",
+        "                 out_mean[qlo:qhi], out_var[qlo:qhi])",
+        "qhi = qlo",
+    )
+    code.dedent()
+    code.dedent()
+
+
 def gen_predict_serial(code, tr):
     gen_predict(code, tr, serial=True)
 
 
-GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_refilter, gen_adjoint,
+GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_filter_checkpoints,
+              gen_refilter, gen_adjoint,
               gen_predict,
-              gen_predict_serial)
+              gen_predict_serial, gen_blocks_pass)
 
 
 def module_source() -> str:

@@ -1820,16 +1820,13 @@ def loglik_grad_d3_multi(data, scal, pinf, trans, sens, work):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 1.
+def filter_store_d1_single(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 1.
 
     ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
     observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
     Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
@@ -1865,589 +1862,6 @@ def filter_store_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
             obs[i, 0] = g
             obs[i, 1] = inv
             obs[i, 2] = h0 * inv
-            m0 += h0 * g
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                Pf[0, 0, 0] = M00 + pf00
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-    mf[mf.shape[0] - 1, 0] = m0
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 2.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    c001 = coef[0, 0, 0, 1]
-    c010 = coef[0, 0, 1, 0]
-    c011 = coef[0, 0, 1, 1]
-    c100 = coef[0, 1, 0, 0]
-    c101 = coef[0, 1, 0, 1]
-    c110 = coef[0, 1, 1, 0]
-    c111 = coef[0, 1, 1, 1]
-    m0 = 0.0
-    m1 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M11 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * c100)
-                a01 = ee * (c001 + hh * c101)
-                a10 = ee * (c010 + hh * c110)
-                a11 = ee * (c011 + hh * c111)
-                w00 = a00 * M00 + a01 * M01
-                w01 = a00 * M01 + a01 * M11
-                w10 = a10 * M00 + a11 * M01
-                w11 = a10 * M01 + a11 * M11
-                M00 = w00 * a00 + w01 * a01
-                M01 = w00 * a10 + w01 * a11
-                M11 = w10 * a10 + w11 * a11
-                x0 = a00 * m0 + a01 * m1
-                x1 = a10 * m0 + a11 * m1
-                m0 = x0
-                m1 = x1
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            M11 -= h1 * inv * h1
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                mf[0, 1] = m1
-                Pf[0, 0, 0] = M00 + pf00
-                Pf[0, 0, 1] = M01 + pf01
-                Pf[0, 1, 0] = Pf[0, 0, 1]
-                Pf[0, 1, 1] = M11 + pf11
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                mf[(i + 1) // stride, 1] = m1
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
-                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
-                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
-    mf[mf.shape[0] - 1, 0] = m0
-    mf[mf.shape[0] - 1, 1] = m1
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
-    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
-    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_single(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 3.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    c001 = coef[0, 0, 0, 1]
-    c002 = coef[0, 0, 0, 2]
-    c010 = coef[0, 0, 1, 0]
-    c011 = coef[0, 0, 1, 1]
-    c012 = coef[0, 0, 1, 2]
-    c020 = coef[0, 0, 2, 0]
-    c021 = coef[0, 0, 2, 1]
-    c022 = coef[0, 0, 2, 2]
-    c100 = coef[0, 1, 0, 0]
-    c101 = coef[0, 1, 0, 1]
-    c102 = coef[0, 1, 0, 2]
-    c110 = coef[0, 1, 1, 0]
-    c111 = coef[0, 1, 1, 1]
-    c112 = coef[0, 1, 1, 2]
-    c120 = coef[0, 1, 2, 0]
-    c121 = coef[0, 1, 2, 1]
-    c122 = coef[0, 1, 2, 2]
-    c200 = coef[0, 2, 0, 0]
-    c201 = coef[0, 2, 0, 1]
-    c202 = coef[0, 2, 0, 2]
-    c210 = coef[0, 2, 1, 0]
-    c211 = coef[0, 2, 1, 1]
-    c212 = coef[0, 2, 1, 2]
-    c220 = coef[0, 2, 2, 0]
-    c221 = coef[0, 2, 2, 1]
-    c222 = coef[0, 2, 2, 2]
-    m0 = 0.0
-    m1 = 0.0
-    m2 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M02 = 0.0
-    M11 = 0.0
-    M12 = 0.0
-    M22 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * (c100 + hh * c200))
-                a01 = ee * (c001 + hh * (c101 + hh * c201))
-                a02 = ee * (c002 + hh * (c102 + hh * c202))
-                a10 = ee * (c010 + hh * (c110 + hh * c210))
-                a11 = ee * (c011 + hh * (c111 + hh * c211))
-                a12 = ee * (c012 + hh * (c112 + hh * c212))
-                a20 = ee * (c020 + hh * (c120 + hh * c220))
-                a21 = ee * (c021 + hh * (c121 + hh * c221))
-                a22 = ee * (c022 + hh * (c122 + hh * c222))
-                w00 = a00 * M00 + a01 * M01 + a02 * M02
-                w01 = a00 * M01 + a01 * M11 + a02 * M12
-                w02 = a00 * M02 + a01 * M12 + a02 * M22
-                w10 = a10 * M00 + a11 * M01 + a12 * M02
-                w11 = a10 * M01 + a11 * M11 + a12 * M12
-                w12 = a10 * M02 + a11 * M12 + a12 * M22
-                w20 = a20 * M00 + a21 * M01 + a22 * M02
-                w21 = a20 * M01 + a21 * M11 + a22 * M12
-                w22 = a20 * M02 + a21 * M12 + a22 * M22
-                M00 = w00 * a00 + w01 * a01 + w02 * a02
-                M01 = w00 * a10 + w01 * a11 + w02 * a12
-                M02 = w00 * a20 + w01 * a21 + w02 * a22
-                M11 = w10 * a10 + w11 * a11 + w12 * a12
-                M12 = w10 * a20 + w11 * a21 + w12 * a22
-                M22 = w20 * a20 + w21 * a21 + w22 * a22
-                x0 = a00 * m0 + a01 * m1 + a02 * m2
-                x1 = a10 * m0 + a11 * m1 + a12 * m2
-                x2 = a20 * m0 + a21 * m1 + a22 * m2
-                m0 = x0
-                m1 = x1
-                m2 = x2
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            h2 = M02 + pf02
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            obs[i, 4] = h2 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            m2 += h2 * g
-            M11 -= h1 * inv * h1
-            M12 -= h1 * inv * h2
-            M22 -= h2 * inv * h2
-            M02 = h2 * r * inv - pf02
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                mf[0, 1] = m1
-                mf[0, 2] = m2
-                Pf[0, 0, 0] = M00 + pf00
-                Pf[0, 0, 1] = M01 + pf01
-                Pf[0, 1, 0] = Pf[0, 0, 1]
-                Pf[0, 0, 2] = M02 + pf02
-                Pf[0, 2, 0] = Pf[0, 0, 2]
-                Pf[0, 1, 1] = M11 + pf11
-                Pf[0, 1, 2] = M12 + pf12
-                Pf[0, 2, 1] = Pf[0, 1, 2]
-                Pf[0, 2, 2] = M22 + pf22
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                mf[(i + 1) // stride, 1] = m1
-                mf[(i + 1) // stride, 2] = m2
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
-                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
-                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
-                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
-                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
-                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
-                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
-                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
-    mf[mf.shape[0] - 1, 0] = m0
-    mf[mf.shape[0] - 1, 1] = m1
-    mf[mf.shape[0] - 1, 2] = m2
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
-    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
-    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
-    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
-    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
-    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
-    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
-    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 1.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    m0 = 0.0
-    M00 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                w00 = a00 * M00
-                M00 = w00 * a00
-                x0 = a00 * m0
-                m0 = x0
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            m0 += h0 * g
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                Pf[0, 0, 0] = M00 + pf00
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-    mf[mf.shape[0] - 1, 0] = m0
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 2.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
-    m0 = 0.0
-    m1 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M11 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a10 = work[ROW_A + 2, b]
-                a11 = work[ROW_A + 3, b]
-                w00 = a00 * M00 + a01 * M01
-                w01 = a00 * M01 + a01 * M11
-                w10 = a10 * M00 + a11 * M01
-                w11 = a10 * M01 + a11 * M11
-                M00 = w00 * a00 + w01 * a01
-                M01 = w00 * a10 + w01 * a11
-                M11 = w10 * a10 + w11 * a11
-                x0 = a00 * m0 + a01 * m1
-                x1 = a10 * m0 + a11 * m1
-                m0 = x0
-                m1 = x1
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            M11 -= h1 * inv * h1
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                mf[0, 1] = m1
-                Pf[0, 0, 0] = M00 + pf00
-                Pf[0, 0, 1] = M01 + pf01
-                Pf[0, 1, 0] = Pf[0, 0, 1]
-                Pf[0, 1, 1] = M11 + pf11
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                mf[(i + 1) // stride, 1] = m1
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
-                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
-                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
-    mf[mf.shape[0] - 1, 0] = m0
-    mf[mf.shape[0] - 1, 1] = m1
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
-    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
-    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf, stride):
-    """Observation terms of every point and filtered states every ``stride``, d = 3.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
-    point 0 in row 0, at point ``c * stride - 1`` in row c, the first point
-    of every window that ``refilter`` starts from, and at point n - 1 in the
-    last row. ``stride = 1`` stores every state (point i in row i + 1).
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
-    m0 = 0.0
-    m1 = 0.0
-    m2 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M02 = 0.0
-    M11 = 0.0
-    M12 = 0.0
-    M22 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a02 = work[ROW_A + 2, b]
-                a10 = work[ROW_A + 3, b]
-                a11 = work[ROW_A + 4, b]
-                a12 = work[ROW_A + 5, b]
-                a20 = work[ROW_A + 6, b]
-                a21 = work[ROW_A + 7, b]
-                a22 = work[ROW_A + 8, b]
-                w00 = a00 * M00 + a01 * M01 + a02 * M02
-                w01 = a00 * M01 + a01 * M11 + a02 * M12
-                w02 = a00 * M02 + a01 * M12 + a02 * M22
-                w10 = a10 * M00 + a11 * M01 + a12 * M02
-                w11 = a10 * M01 + a11 * M11 + a12 * M12
-                w12 = a10 * M02 + a11 * M12 + a12 * M22
-                w20 = a20 * M00 + a21 * M01 + a22 * M02
-                w21 = a20 * M01 + a21 * M11 + a22 * M12
-                w22 = a20 * M02 + a21 * M12 + a22 * M22
-                M00 = w00 * a00 + w01 * a01 + w02 * a02
-                M01 = w00 * a10 + w01 * a11 + w02 * a12
-                M02 = w00 * a20 + w01 * a21 + w02 * a22
-                M11 = w10 * a10 + w11 * a11 + w12 * a12
-                M12 = w10 * a20 + w11 * a21 + w12 * a22
-                M22 = w20 * a20 + w21 * a21 + w22 * a22
-                x0 = a00 * m0 + a01 * m1 + a02 * m2
-                x1 = a10 * m0 + a11 * m1 + a12 * m2
-                x2 = a20 * m0 + a21 * m1 + a22 * m2
-                m0 = x0
-                m1 = x1
-                m2 = x2
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            h2 = M02 + pf02
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            obs[i, 4] = h2 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            m2 += h2 * g
-            M11 -= h1 * inv * h1
-            M12 -= h1 * inv * h2
-            M22 -= h2 * inv * h2
-            M02 = h2 * r * inv - pf02
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            if i == 0:
-                mf[0, 0] = m0
-                mf[0, 1] = m1
-                mf[0, 2] = m2
-                Pf[0, 0, 0] = M00 + pf00
-                Pf[0, 0, 1] = M01 + pf01
-                Pf[0, 1, 0] = Pf[0, 0, 1]
-                Pf[0, 0, 2] = M02 + pf02
-                Pf[0, 2, 0] = Pf[0, 0, 2]
-                Pf[0, 1, 1] = M11 + pf11
-                Pf[0, 1, 2] = M12 + pf12
-                Pf[0, 2, 1] = Pf[0, 1, 2]
-                Pf[0, 2, 2] = M22 + pf22
-            if (i + 1) % stride == 0:
-                mf[(i + 1) // stride, 0] = m0
-                mf[(i + 1) // stride, 1] = m1
-                mf[(i + 1) // stride, 2] = m2
-                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
-                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
-                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
-                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
-                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
-                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
-                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
-                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
-                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
-    mf[mf.shape[0] - 1, 0] = m0
-    mf[mf.shape[0] - 1, 1] = m1
-    mf[mf.shape[0] - 1, 2] = m2
-    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
-    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
-    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
-    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
-    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
-    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
-    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
-    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
-    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d1_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 1.
-
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    m0 = mf[0, 0]
-    M00 = Pf[0, 0, 0] - pf00
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(1, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                a00 = ee * (c000)
-                w00 = a00 * M00
-                M00 = w00 * a00
-                x0 = a00 * m0
-                m0 = x0
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
             m0 += h0 * g
             M00 = h0 * r * inv - pf00
             mf[i, 0] = m0
@@ -2455,11 +1869,13 @@ def refilter_d1_single(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d2_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 2.
+def filter_store_d2_single(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 2.
 
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
@@ -2477,14 +1893,14 @@ def refilter_d2_single(data, scal, pinf, trans, work, mf, Pf):
     c101 = coef[0, 1, 0, 1]
     c110 = coef[0, 1, 1, 0]
     c111 = coef[0, 1, 1, 1]
-    m0 = mf[0, 0]
-    m1 = mf[0, 1]
-    M00 = Pf[0, 0, 0] - pf00
-    M01 = Pf[0, 0, 1] - pf01
-    M11 = Pf[0, 1, 1] - pf11
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
     block = work.shape[1]
     dtr = work[ROW_DT]
-    for start in range(1, n, block):
+    for start in range(0, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_decay(cnt, rate0, work)
@@ -2516,6 +1932,10 @@ def refilter_d2_single(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
             m0 += h0 * g
             m1 += h1 * g
             M11 -= h1 * inv * h1
@@ -2530,11 +1950,13 @@ def refilter_d2_single(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d3_single(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 3.
+def filter_store_d3_single(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 3.
 
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
@@ -2574,18 +1996,18 @@ def refilter_d3_single(data, scal, pinf, trans, work, mf, Pf):
     c220 = coef[0, 2, 2, 0]
     c221 = coef[0, 2, 2, 1]
     c222 = coef[0, 2, 2, 2]
-    m0 = mf[0, 0]
-    m1 = mf[0, 1]
-    m2 = mf[0, 2]
-    M00 = Pf[0, 0, 0] - pf00
-    M01 = Pf[0, 0, 1] - pf01
-    M02 = Pf[0, 0, 2] - pf02
-    M11 = Pf[0, 1, 1] - pf11
-    M12 = Pf[0, 1, 2] - pf12
-    M22 = Pf[0, 2, 2] - pf22
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
     block = work.shape[1]
     dtr = work[ROW_DT]
-    for start in range(1, n, block):
+    for start in range(0, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_decay(cnt, rate0, work)
@@ -2633,6 +2055,11 @@ def refilter_d3_single(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
             m0 += h0 * g
             m1 += h1 * g
             m2 += h2 * g
@@ -2657,21 +2084,23 @@ def refilter_d3_single(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d1_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 1.
+def filter_store_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 1.
 
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
     n = t.size
     pf00 = pinf[0, 0]
-    m0 = mf[0, 0]
-    M00 = Pf[0, 0, 0] - pf00
+    m0 = 0.0
+    M00 = 0.0
     block = work.shape[1]
     dtr = work[ROW_DT]
-    for start in range(1, n, block):
+    for start in range(0, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_transition(cnt, trans, work, ROW_A)
@@ -2690,6 +2119,9 @@ def refilter_d1_multi(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
             m0 += h0 * g
             M00 = h0 * r * inv - pf00
             mf[i, 0] = m0
@@ -2697,11 +2129,13 @@ def refilter_d1_multi(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d2_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 2.
+def filter_store_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 2.
 
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
@@ -2709,14 +2143,14 @@ def refilter_d2_multi(data, scal, pinf, trans, work, mf, Pf):
     pf00 = pinf[0, 0]
     pf01 = pinf[0, 1]
     pf11 = pinf[1, 1]
-    m0 = mf[0, 0]
-    m1 = mf[0, 1]
-    M00 = Pf[0, 0, 0] - pf00
-    M01 = Pf[0, 0, 1] - pf01
-    M11 = Pf[0, 1, 1] - pf11
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
     block = work.shape[1]
     dtr = work[ROW_DT]
-    for start in range(1, n, block):
+    for start in range(0, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_transition(cnt, trans, work, ROW_A)
@@ -2746,6 +2180,10 @@ def refilter_d2_multi(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
             m0 += h0 * g
             m1 += h1 * g
             M11 -= h1 * inv * h1
@@ -2760,11 +2198,13 @@ def refilter_d2_multi(data, scal, pinf, trans, work, mf, Pf):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def refilter_d3_multi(data, scal, pinf, trans, work, mf, Pf):
-    """Filtered states of points 1 .. n - 1 from the one in row 0 on entry, d = 3.
+def filter_store_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf):
+    """Observation terms and filtered state of every point, d = 3.
 
-    The same arithmetic as ``filter_store``, so a window started from one of
-    its checkpoints reproduces the states of a whole pass.
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
+    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
     """
     t, y, err = data
     mean, excess = scal
@@ -2775,18 +2215,18 @@ def refilter_d3_multi(data, scal, pinf, trans, work, mf, Pf):
     pf11 = pinf[1, 1]
     pf12 = pinf[1, 2]
     pf22 = pinf[2, 2]
-    m0 = mf[0, 0]
-    m1 = mf[0, 1]
-    m2 = mf[0, 2]
-    M00 = Pf[0, 0, 0] - pf00
-    M01 = Pf[0, 0, 1] - pf01
-    M02 = Pf[0, 0, 2] - pf02
-    M11 = Pf[0, 1, 1] - pf11
-    M12 = Pf[0, 1, 2] - pf12
-    M22 = Pf[0, 2, 2] - pf22
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
     block = work.shape[1]
     dtr = work[ROW_DT]
-    for start in range(1, n, block):
+    for start in range(0, n, block):
         cnt = min(block, n - start)
         step_sizes(t, start, cnt, dtr)
         fill_transition(cnt, trans, work, ROW_A)
@@ -2832,6 +2272,1109 @@ def refilter_d3_multi(data, scal, pinf, trans, work, mf, Pf):
             v = y[i] - mean - m0
             inv = 1.0 / s
             g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            mf[i, 2] = m2
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 0, 2] = M02 + pf02
+            Pf[i, 2, 0] = Pf[i, 0, 2]
+            Pf[i, 1, 1] = M11 + pf11
+            Pf[i, 1, 2] = M12 + pf12
+            Pf[i, 2, 1] = Pf[i, 1, 2]
+            Pf[i, 2, 2] = M22 + pf22
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d1_single(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 1; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    m0 = 0.0
+    M00 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                a00 = ee * (c000)
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                Pf[0, 0, 0] = M00 + pf00
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+    mf[mf.shape[0] - 1, 0] = m0
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d2_single(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 2; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 1, 1] = M11 + pf11
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d3_single(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 3; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c002 = coef[0, 0, 0, 2]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c012 = coef[0, 0, 1, 2]
+    c020 = coef[0, 0, 2, 0]
+    c021 = coef[0, 0, 2, 1]
+    c022 = coef[0, 0, 2, 2]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c102 = coef[0, 1, 0, 2]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    c112 = coef[0, 1, 1, 2]
+    c120 = coef[0, 1, 2, 0]
+    c121 = coef[0, 1, 2, 1]
+    c122 = coef[0, 1, 2, 2]
+    c200 = coef[0, 2, 0, 0]
+    c201 = coef[0, 2, 0, 1]
+    c202 = coef[0, 2, 0, 2]
+    c210 = coef[0, 2, 1, 0]
+    c211 = coef[0, 2, 1, 1]
+    c212 = coef[0, 2, 1, 2]
+    c220 = coef[0, 2, 2, 0]
+    c221 = coef[0, 2, 2, 1]
+    c222 = coef[0, 2, 2, 2]
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                mf[0, 2] = m2
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 0, 2] = M02 + pf02
+                Pf[0, 2, 0] = Pf[0, 0, 2]
+                Pf[0, 1, 1] = M11 + pf11
+                Pf[0, 1, 2] = M12 + pf12
+                Pf[0, 2, 1] = Pf[0, 1, 2]
+                Pf[0, 2, 2] = M22 + pf22
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                mf[(i + 1) // stride, 2] = m2
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
+                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
+                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
+                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    mf[mf.shape[0] - 1, 2] = m2
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
+    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
+    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
+    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d1_multi(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 1; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    m0 = 0.0
+    M00 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                Pf[0, 0, 0] = M00 + pf00
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+    mf[mf.shape[0] - 1, 0] = m0
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d2_multi(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 2; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 1, 1] = M11 + pf11
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def filter_checkpoints_d3_multi(data, scal, pinf, trans, work, mf, Pf, stride):
+    """Filtered states every ``stride`` points, d = 3; returns ``(v / s, 1 / s)``
+    of the last point (its own adjoint).
+
+    ``mf`` (n // stride + 2, d) and ``Pf`` receive the filtered state at
+    point 0 in row 0, at point ``c * stride - 1`` in row c (the first point
+    of the window that ``refilter`` starts from), and at point n - 1 in
+    the last row.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    g = 0.0
+    inv = 0.0
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(0, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            if i == 0:
+                mf[0, 0] = m0
+                mf[0, 1] = m1
+                mf[0, 2] = m2
+                Pf[0, 0, 0] = M00 + pf00
+                Pf[0, 0, 1] = M01 + pf01
+                Pf[0, 1, 0] = Pf[0, 0, 1]
+                Pf[0, 0, 2] = M02 + pf02
+                Pf[0, 2, 0] = Pf[0, 0, 2]
+                Pf[0, 1, 1] = M11 + pf11
+                Pf[0, 1, 2] = M12 + pf12
+                Pf[0, 2, 1] = Pf[0, 1, 2]
+                Pf[0, 2, 2] = M22 + pf22
+            if (i + 1) % stride == 0:
+                mf[(i + 1) // stride, 0] = m0
+                mf[(i + 1) // stride, 1] = m1
+                mf[(i + 1) // stride, 2] = m2
+                Pf[(i + 1) // stride, 0, 0] = M00 + pf00
+                Pf[(i + 1) // stride, 0, 1] = M01 + pf01
+                Pf[(i + 1) // stride, 1, 0] = Pf[(i + 1) // stride, 0, 1]
+                Pf[(i + 1) // stride, 0, 2] = M02 + pf02
+                Pf[(i + 1) // stride, 2, 0] = Pf[(i + 1) // stride, 0, 2]
+                Pf[(i + 1) // stride, 1, 1] = M11 + pf11
+                Pf[(i + 1) // stride, 1, 2] = M12 + pf12
+                Pf[(i + 1) // stride, 2, 1] = Pf[(i + 1) // stride, 1, 2]
+                Pf[(i + 1) // stride, 2, 2] = M22 + pf22
+    mf[mf.shape[0] - 1, 0] = m0
+    mf[mf.shape[0] - 1, 1] = m1
+    mf[mf.shape[0] - 1, 2] = m2
+    Pf[mf.shape[0] - 1, 0, 0] = M00 + pf00
+    Pf[mf.shape[0] - 1, 0, 1] = M01 + pf01
+    Pf[mf.shape[0] - 1, 1, 0] = Pf[mf.shape[0] - 1, 0, 1]
+    Pf[mf.shape[0] - 1, 0, 2] = M02 + pf02
+    Pf[mf.shape[0] - 1, 2, 0] = Pf[mf.shape[0] - 1, 0, 2]
+    Pf[mf.shape[0] - 1, 1, 1] = M11 + pf11
+    Pf[mf.shape[0] - 1, 1, 2] = M12 + pf12
+    Pf[mf.shape[0] - 1, 2, 1] = Pf[mf.shape[0] - 1, 1, 2]
+    Pf[mf.shape[0] - 1, 2, 2] = M22 + pf22
+    return g, inv
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 1.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    m0 = 0.0
+    M00 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        M00 = Pf[0, 0, 0] - pf00
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                a00 = ee * (c000)
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            Pf[i, 0, 0] = M00 + pf00
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d2_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 2.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        m1 = mf[0, 1]
+        M00 = Pf[0, 0, 0] - pf00
+        M01 = Pf[0, 0, 1] - pf01
+        M11 = Pf[0, 1, 1] - pf11
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * c100)
+                a01 = ee * (c001 + hh * c101)
+                a10 = ee * (c010 + hh * c110)
+                a11 = ee * (c011 + hh * c111)
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 1, 1] = M11 + pf11
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d3_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 3.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    rate0 = trans[0][0]
+    coef = trans[2]
+    c000 = coef[0, 0, 0, 0]
+    c001 = coef[0, 0, 0, 1]
+    c002 = coef[0, 0, 0, 2]
+    c010 = coef[0, 0, 1, 0]
+    c011 = coef[0, 0, 1, 1]
+    c012 = coef[0, 0, 1, 2]
+    c020 = coef[0, 0, 2, 0]
+    c021 = coef[0, 0, 2, 1]
+    c022 = coef[0, 0, 2, 2]
+    c100 = coef[0, 1, 0, 0]
+    c101 = coef[0, 1, 0, 1]
+    c102 = coef[0, 1, 0, 2]
+    c110 = coef[0, 1, 1, 0]
+    c111 = coef[0, 1, 1, 1]
+    c112 = coef[0, 1, 1, 2]
+    c120 = coef[0, 1, 2, 0]
+    c121 = coef[0, 1, 2, 1]
+    c122 = coef[0, 1, 2, 2]
+    c200 = coef[0, 2, 0, 0]
+    c201 = coef[0, 2, 0, 1]
+    c202 = coef[0, 2, 0, 2]
+    c210 = coef[0, 2, 1, 0]
+    c211 = coef[0, 2, 1, 1]
+    c212 = coef[0, 2, 1, 2]
+    c220 = coef[0, 2, 2, 0]
+    c221 = coef[0, 2, 2, 1]
+    c222 = coef[0, 2, 2, 2]
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        m1 = mf[0, 1]
+        m2 = mf[0, 2]
+        M00 = Pf[0, 0, 0] - pf00
+        M01 = Pf[0, 0, 1] - pf01
+        M02 = Pf[0, 0, 2] - pf02
+        M11 = Pf[0, 1, 1] - pf11
+        M12 = Pf[0, 1, 2] - pf12
+        M22 = Pf[0, 2, 2] - pf22
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_decay(cnt, rate0, work)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                ee = work[ROW_E, b]
+                hh = work[ROW_DT, b]
+                a00 = ee * (c000 + hh * (c100 + hh * c200))
+                a01 = ee * (c001 + hh * (c101 + hh * c201))
+                a02 = ee * (c002 + hh * (c102 + hh * c202))
+                a10 = ee * (c010 + hh * (c110 + hh * c210))
+                a11 = ee * (c011 + hh * (c111 + hh * c211))
+                a12 = ee * (c012 + hh * (c112 + hh * c212))
+                a20 = ee * (c020 + hh * (c120 + hh * c220))
+                a21 = ee * (c021 + hh * (c121 + hh * c221))
+                a22 = ee * (c022 + hh * (c122 + hh * c222))
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            m2 += h2 * g
+            M11 -= h1 * inv * h1
+            M12 -= h1 * inv * h2
+            M22 -= h2 * inv * h2
+            M02 = h2 * r * inv - pf02
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            mf[i, 2] = m2
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 0, 2] = M02 + pf02
+            Pf[i, 2, 0] = Pf[i, 0, 2]
+            Pf[i, 1, 1] = M11 + pf11
+            Pf[i, 1, 2] = M12 + pf12
+            Pf[i, 2, 1] = Pf[i, 1, 2]
+            Pf[i, 2, 2] = M22 + pf22
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 1.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    m0 = 0.0
+    M00 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        M00 = Pf[0, 0, 0] - pf00
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                w00 = a00 * M00
+                M00 = w00 * a00
+                x0 = a00 * m0
+                m0 = x0
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            m0 += h0 * g
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            Pf[i, 0, 0] = M00 + pf00
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 2.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf11 = pinf[1, 1]
+    m0 = 0.0
+    m1 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M11 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        m1 = mf[0, 1]
+        M00 = Pf[0, 0, 0] - pf00
+        M01 = Pf[0, 0, 1] - pf01
+        M11 = Pf[0, 1, 1] - pf11
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a10 = work[ROW_A + 2, b]
+                a11 = work[ROW_A + 3, b]
+                w00 = a00 * M00 + a01 * M01
+                w01 = a00 * M01 + a01 * M11
+                w10 = a10 * M00 + a11 * M01
+                w11 = a10 * M01 + a11 * M11
+                M00 = w00 * a00 + w01 * a01
+                M01 = w00 * a10 + w01 * a11
+                M11 = w10 * a10 + w11 * a11
+                x0 = a00 * m0 + a01 * m1
+                x1 = a10 * m0 + a11 * m1
+                m0 = x0
+                m1 = x1
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            m0 += h0 * g
+            m1 += h1 * g
+            M11 -= h1 * inv * h1
+            M01 = h1 * r * inv - pf01
+            M00 = h0 * r * inv - pf00
+            mf[i, 0] = m0
+            mf[i, 1] = m1
+            Pf[i, 0, 0] = M00 + pf00
+            Pf[i, 0, 1] = M01 + pf01
+            Pf[i, 1, 0] = Pf[i, 0, 1]
+            Pf[i, 1, 1] = M11 + pf11
+
+
+@njit(cache=True, nogil=True, fastmath={'contract'})
+def refilter_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
+    """Observation terms and filtered states of a window, d = 3.
+
+    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
+    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
+    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
+    window started from a checkpoint reproduces that pass's numbers.
+    """
+    t, y, err = data
+    mean, excess = scal
+    n = t.size
+    pf00 = pinf[0, 0]
+    pf01 = pinf[0, 1]
+    pf02 = pinf[0, 2]
+    pf11 = pinf[1, 1]
+    pf12 = pinf[1, 2]
+    pf22 = pinf[2, 2]
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    M00 = 0.0
+    M01 = 0.0
+    M02 = 0.0
+    M11 = 0.0
+    M12 = 0.0
+    M22 = 0.0
+    if first == 1:
+        m0 = mf[0, 0]
+        m1 = mf[0, 1]
+        m2 = mf[0, 2]
+        M00 = Pf[0, 0, 0] - pf00
+        M01 = Pf[0, 0, 1] - pf01
+        M02 = Pf[0, 0, 2] - pf02
+        M11 = Pf[0, 1, 1] - pf11
+        M12 = Pf[0, 1, 2] - pf12
+        M22 = Pf[0, 2, 2] - pf22
+    block = work.shape[1]
+    dtr = work[ROW_DT]
+    for start in range(first, n, block):
+        cnt = min(block, n - start)
+        step_sizes(t, start, cnt, dtr)
+        fill_transition(cnt, trans, work, ROW_A)
+        for b in range(cnt):
+            i = start + b
+            if dtr[b] > 0.0:
+                a00 = work[ROW_A + 0, b]
+                a01 = work[ROW_A + 1, b]
+                a02 = work[ROW_A + 2, b]
+                a10 = work[ROW_A + 3, b]
+                a11 = work[ROW_A + 4, b]
+                a12 = work[ROW_A + 5, b]
+                a20 = work[ROW_A + 6, b]
+                a21 = work[ROW_A + 7, b]
+                a22 = work[ROW_A + 8, b]
+                w00 = a00 * M00 + a01 * M01 + a02 * M02
+                w01 = a00 * M01 + a01 * M11 + a02 * M12
+                w02 = a00 * M02 + a01 * M12 + a02 * M22
+                w10 = a10 * M00 + a11 * M01 + a12 * M02
+                w11 = a10 * M01 + a11 * M11 + a12 * M12
+                w12 = a10 * M02 + a11 * M12 + a12 * M22
+                w20 = a20 * M00 + a21 * M01 + a22 * M02
+                w21 = a20 * M01 + a21 * M11 + a22 * M12
+                w22 = a20 * M02 + a21 * M12 + a22 * M22
+                M00 = w00 * a00 + w01 * a01 + w02 * a02
+                M01 = w00 * a10 + w01 * a11 + w02 * a12
+                M02 = w00 * a20 + w01 * a21 + w02 * a22
+                M11 = w10 * a10 + w11 * a11 + w12 * a12
+                M12 = w10 * a20 + w11 * a21 + w12 * a22
+                M22 = w20 * a20 + w21 * a21 + w22 * a22
+                x0 = a00 * m0 + a01 * m1 + a02 * m2
+                x1 = a10 * m0 + a11 * m1 + a12 * m2
+                x2 = a20 * m0 + a21 * m1 + a22 * m2
+                m0 = x0
+                m1 = x1
+                m2 = x2
+            ei = err[i]
+            r = ei * ei + excess
+            h0 = M00 + pf00
+            h1 = M01 + pf01
+            h2 = M02 + pf02
+            s = h0 + r
+            v = y[i] - mean - m0
+            inv = 1.0 / s
+            g = v * inv
+            obs[i, 0] = g
+            obs[i, 1] = inv
+            obs[i, 2] = h0 * inv
+            obs[i, 3] = h1 * inv
+            obs[i, 4] = h2 * inv
             m0 += h0 * g
             m1 += h1 * g
             m2 += h2 * g
@@ -5138,3 +5681,351 @@ def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_va
             out_mean[i] = mean
             out_var[i] = max(var, 0.0)
             b += 1
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d1_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 1.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d1_single((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d1_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d1_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d2_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 2.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d2_single((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d2_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d2_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d3_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 3.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d3_single((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d3_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d3_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d1_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 1.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d1_multi((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d1_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d1_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d2_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 2.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d2_multi((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d2_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d2_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo
+
+
+@njit(cache=True, nogil=True)
+def blocks_pass_d3_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
+                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 3.
+
+    ``data`` may be one point shorter than ``t`` (a split half's last row),
+    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
+    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
+    any) is read from ``adj_ckpt`` and that of every block run is written
+    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
+    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
+    least ``block + 2`` rows.
+    """
+    obs, mf, Pf, lam, Lam = buffers
+    ck_m, ck_P = ckpt
+    adj_u, adj_U = adj_ckpt
+    n = t.size
+    n_data = data[0].size
+    qhi = tq.size
+    for j in range(j_hi - 1, j_lo - 1, -1):
+        start = j * block
+        end = min(start + block, n)
+        lo = max(start - 1, 0)
+        hi = min(end + 1, n)
+        m = hi - lo
+        first = 0
+        if lo > 0:  # from the checkpoint at lo, one before the block's start
+            first = 1
+            mf[0] = ck_m[j]
+            Pf[0] = ck_P[j]
+            obs[0] = 0.0  # not read: the adjoint at lo belongs to the block before
+        dend = min(hi, n_data)
+        refilter_d3_multi((data[0][lo:dend], data[1][lo:dend], data[2][lo:dend]), scal, pinf,
+                 trans, work, obs[:m], mf[:m], Pf[:m], first)
+        if end >= n:
+            lam[m - 1] = terminal[0]
+            Lam[m - 1] = terminal[1]
+        else:
+            lam[m - 1] = adj_u[j + 1]
+            Lam[m - 1] = adj_U[j + 1]
+        adjoint_d3_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
+        adj_u[j] = lam[start - lo]
+        adj_U[j] = Lam[start - lo]
+        # this block's queries: those whose next data point lies in it
+        qlo = qhi
+        if j == 0:
+            qlo = 0
+        else:
+            while qlo > 0 and idx[qlo - 1] >= start - 1:
+                qlo -= 1
+        if qhi > qlo:
+            w = end - lo
+            predict_serial_d3_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+                         (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
+                         out_mean[qlo:qhi], out_var[qlo:qhi])
+        qhi = qlo

@@ -30,6 +30,10 @@ from .kalman_sweep import Sweep
 
 # Steps whose transitions the specialised loops compute in one vectorised pass.
 _STEP_BLOCK = 512
+# Points per block of a lean posterior: its buffers (about 30 d^2 bytes a point)
+# stay in the core's cache, and its blocks run in one compiled call, so small
+# blocks cost nothing per block.
+_LEAN_BLOCK = 16384
 # Largest state dimension with specialised loops (``_loops/kalman_fast.py``).
 _FAST_MAX_DIM = 3
 
@@ -221,6 +225,78 @@ def _sensitivities(model, dpinf_kernel, dtrans_kernel):
     )
 
 
+class StoredOutput:
+    """A sweep's filter output stored at every point: a window is a slice.
+
+    ``rows`` are what the smoother reads, ``states`` the filtered means and
+    covariances (the same arrays for the RTS smoother).
+    """
+
+    def __init__(self, rows, states):
+        self.rows, self.states = rows, states
+
+    @property
+    def arrays(self):
+        """Every array held (for memory accounting)."""
+        return self.states if self.rows is self.states else self.rows + self.states
+
+    def __call__(self, lo, hi, fresh):
+        return tuple(a[lo:hi] for a in self.rows), tuple(a[lo:hi] for a in self.states)
+
+
+class RefilteredOutput:
+    """A lean sweep's filter output: re-run over a block from a checkpoint.
+
+    Holds the data, one filtered state per block (``ckpt``, rows as
+    ``filter_checkpoints`` writes them) and one set of block buffers, which
+    each window overwrites (``fresh=False``) or which a window that is to be
+    kept does not touch (``fresh=True``). ``loops`` are the specialised
+    ``refilter`` and ``blocks_pass`` of the form; ``args`` the model's
+    ``(scal, pinf, trans)``.
+    """
+
+    def __init__(self, data, ckpt, block, loops, args, work):
+        self.data, self.ckpt, self.block = data, ckpt, block
+        self._refilter, self._blocks_pass = loops
+        self._args, self._work = args, work
+        self._buffers = None  # (obs, mf, Pf, lam, Lam) of block + 2 rows, made on first use
+
+    @property
+    def arrays(self):
+        """Every array held apart from the data (for memory accounting)."""
+        return self.ckpt
+
+    def _out(self, m, fresh):
+        d = self.ckpt[0].shape[1]
+        if fresh:
+            return np.empty((m, d + 2)), np.empty((m, d)), np.empty((m, d, d))
+        if self._buffers is None:
+            rows = self.block + 2
+            self._buffers = (np.empty((rows, d + 2)), np.empty((rows, d)),
+                             np.empty((rows, d, d)), np.empty((rows, d)),
+                             np.empty((rows, d, d)))
+        return tuple(a[:m] for a in self._buffers[:3])
+
+    def __call__(self, lo, hi, fresh):
+        obs, mf, Pf = self._out(hi - lo, fresh)
+        first = 0 if lo == 0 else 1  # else lo is one before a block start: a checkpoint
+        if first:
+            c = (lo + 1) // self.block
+            mf[0], Pf[0], obs[0] = self.ckpt[0][c], self.ckpt[1][c], 0.0  # obs[0] unread
+        # A split half's window may end one row past its data (the join's row).
+        end = min(hi, self.data[0].size)
+        self._refilter(tuple(a[lo:end] for a in self.data), *self._args, self._work,
+                       obs, mf, Pf, first)
+        return (obs,), (mf, Pf)
+
+    def run_blocks(self, t, terminal, j_lo, j_hi, tq, idx, mean, var, adj_ckpt):
+        """Blocks ``j_hi - 1`` down to ``j_lo`` and their sorted queries, in one call
+        (``blocks_pass`` in ``_loops/kalman_fast.py``); see :meth:`Sweep.latent`."""
+        self._out(0, False)  # make the buffers
+        self._blocks_pass(t, self.data, *self._args, self.ckpt, self.block, terminal, j_lo,
+                          j_hi, tq, idx, mean, var, adj_ckpt, self._buffers, self._work)
+
+
 class KalmanPosterior(Posterior):
     """The filter's output at the data times; the smoother's is recomputed per block.
 
@@ -236,12 +312,16 @@ class KalmanPosterior(Posterior):
 
     Memory, with d the state dimension (2 for Matérn-3/2): the general loops
     store every filtered state, ``n (d + d^2)`` doubles. The specialised ones
-    store ``obs`` (``n (d + 2)`` doubles) and either every filtered state too
-    or, when those do not fit ``kalman_states_mb`` (``lean``), one per block,
-    re-running the filter over a block when a prediction needs its states.
-    So a Matérn-5/2 posterior of n = 1e7 holds 400 MB of observation terms
-    where every filtered state would add 960 MB (a split one also keeps its
-    right half's data reversed: 3 n / 2 doubles).
+    are lean (``lean``) for d >= 2: they keep one filtered state per block
+    and nothing of length n but the data, re-running the filter over a block
+    when they smooth and predict there; sorted queries then run the whole
+    backward pass in one compiled call (``blocks_pass``). For d = 1 they
+    store the filtered states and the observation terms the adjoint reads
+    (``n (2 d + 2 + d^2)`` doubles) while that fits ``kalman_states_mb``.
+    Why: storing costs the memory traffic of first touching it, which on
+    the virtual machines measured was 0.15 to 2 ms per MB, more than the
+    filter pass that recomputes it once per point holds more than a few
+    numbers (``bench/bench_kalman.py``, figures in DEVELOPERS.md).
 
     On two cores a long series is built in two halves at once: the left half
     filtered forwards, the right half backwards in time, joined at one state
@@ -253,7 +333,8 @@ class KalmanPosterior(Posterior):
     ----------
     model, series
     block : int, optional
-        Points per smoother block (default ``LONGWAVE_CHUNK``, see ``longwave._config``).
+        Points per smoother block (default 16384 when lean, else
+        ``LONGWAVE_CHUNK``, see ``longwave._config``).
     fast : bool, default False
         Run the loops specialised to the state dimension (``_loops/kalman_fast.py``)
         when the model allows (d <= 3), as :meth:`Kalman.posterior` does; they
@@ -268,10 +349,10 @@ class KalmanPosterior(Posterior):
         no more memory than it needs, and fresh memory is slow to touch on
         virtual machines.
     lean : bool, optional
-        Specialised loops only. Store the filtered state once per block and
-        recompute a block's states from there when a prediction needs them
-        (one more filter pass per prediction), instead of storing every state.
-        Default: when ``n (d + d^2)`` doubles do not fit ``kalman_states_mb``.
+        Specialised loops only. Keep one filtered state per block and re-run
+        the filter over a block when a prediction needs it, instead of
+        storing every state. Default: for d >= 2, or when the stored arrays
+        would not fit ``kalman_states_mb``.
     split : bool, optional
         Build in two halves on two threads. Default: when ``fast`` applies,
         the series has at least ``split_min_n`` points and numba may use two
@@ -299,9 +380,12 @@ class KalmanPosterior(Posterior):
             self._pinf, self._trans = form.pinf, form.trans
         n, d = series.n, ss.dim
         config = settings()
-        self._block = max(int(block or config.chunk_size), 2)  # checkpoints need 2
         states, budget = n * (d + d * d) * 8, config.kalman_states_mb * 2**20
-        self._lean = form is not None and (states > budget if lean is None else bool(lean))
+        if lean is None:  # see the class docstring (lean) for why d >= 2 is lean
+            lean = d >= 2 or n * (2 * d + 2 + d * d) * 8 > budget
+        self._lean = form is not None and bool(lean)
+        default_block = _LEAN_BLOCK if self._lean else config.chunk_size
+        self._block = max(int(block or default_block), 2)  # checkpoints need 2
         self._may_keep = 2 * states <= budget if keep is None else bool(keep)
         if split is None:
             split = form is not None and n >= config.split_min_n and numba.get_num_threads() >= 2
@@ -353,13 +437,17 @@ class KalmanPosterior(Posterior):
         return smooth, predict
 
     def _filter(self, data, rows=None):
-        """Filter ``data = (t, y, err)``: the arrays a :class:`Sweep` keeps of it.
+        """Filter ``data = (t, y, err)``; returns ``(source, last)``.
 
-        General loops: filtered means and covariances ``(mf, Pf)``. Specialised
-        loops: the observation terms ``(obs,)`` and, apart, checkpoints of the
-        filtered state every block (``filter_store`` in ``_loops/kalman_fast.py``),
-        whose last row is the state at the last point. ``rows`` (at least the
-        length of ``data``) sizes the arrays; rows past the data stay zero.
+        ``source`` is the :class:`Sweep`'s ``window`` callable over ``rows``
+        rows (default: the data's length; rows past the data are never read
+        by the smoother or the predictor). ``last`` is the filtered state at
+        the last point, and (specialised loops) its ``v / s`` and ``1 / s``.
+
+        General loops: every filtered state is stored. Specialised loops:
+        every state and the observation terms (``filter_store``), or, lean,
+        one state per block (``filter_checkpoints``) from which the filter is
+        re-run over a block (``refilter`` in ``_loops/kalman_fast.py``).
         """
         model, form, d = self.model, self._form, self._ss.dim
         t, y, err = data
@@ -369,49 +457,38 @@ class KalmanPosterior(Posterior):
             mf, Pf = np.zeros((rows, d)), np.zeros((rows, d, d))
             loops.filter_store(t, y - model.mean_value, model.noise_variance(err),
                                self._ss.H, self._pinf, self._trans, mf[:m], Pf[:m])
-            return (mf, Pf), None
-        obs = np.zeros((rows, d + 2))
-        stride = self._block if self._lean else 1
-        nck = m // stride + 2
-        ckpt = (np.zeros((nck, d)), np.zeros((nck, d, d)))
+            states = (mf, Pf)
+            return StoredOutput(states, states), (mf[m - 1], Pf[m - 1])
         scal = (float(model.mean_value), float(model.excess_variance))
-        form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2),
-                                  obs[:m], *ckpt, stride)
-        return (obs,), ckpt
+        if not self._lean:
+            obs, mf, Pf = np.zeros((rows, d + 2)), np.zeros((rows, d)), np.zeros((rows, d, d))
+            form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2),
+                                      obs[:m], mf[:m], Pf[:m])
+            last = (mf[m - 1], Pf[m - 1], obs[m - 1, 0], obs[m - 1, 1])
+            return StoredOutput((obs,), (mf, Pf)), last
+        block = self._block
+        ck = (np.zeros((m // block + 2, d)), np.zeros((m // block + 2, d, d)))
+        g, inv = form.loop("filter_checkpoints")(data, scal, self._pinf, self._trans,
+                                                  form.work(2), *ck, block)
+        loops_used = (form.loop("refilter"), form.loop("blocks_pass"))
+        source = RefilteredOutput(data, ck, block, loops_used, (scal, self._pinf, self._trans),
+                                  form.work(2))
+        return source, (ck[0][-1], ck[1][-1], g, inv)
 
-    def _forward(self, data, ckpt):
-        """``Sweep``'s ``forward``: a block's filtered states, recomputed from its checkpoint."""
-        if ckpt is None:
-            return None
-        if not self._lean:  # every state stored: row i + 1 holds point i
-            return lambda lo, end, out: (ckpt[0][lo + 1:end + 1], ckpt[1][lo + 1:end + 1])
-        model, form, block = self.model, self._form, self._block
-        scal = (float(model.mean_value), float(model.excess_variance))
-        loop, work = form.loop("refilter"), form.work(1)
-
-        def forward(lo, end, out):
-            c = 0 if lo == 0 else (lo + 1) // block  # lo is 0 or one before a block start
-            mf, Pf = out[0][:end - lo], out[1][:end - lo]
-            mf[0], Pf[0] = ckpt[0][c], ckpt[1][c]
-            loop(tuple(a[lo:end] for a in data), scal, self._pinf, self._trans, work, mf, Pf)
-            return mf, Pf
-
-        return forward
-
-    def _terminal(self, filt):
+    def _terminal(self, last):
         """The backward quantity at the last point of a whole series."""
         if self._form is None:  # RTS: the smoothed state there is the filtered one
-            return filt[0][-1], filt[1][-1]
+            return last[0], last[1]
         d = self._ss.dim
         u, U = np.zeros(d), np.zeros((d, d))
-        u[0], U[0, 0] = filt[0][-1, 0], filt[0][-1, 1]  # v / s, 1 / s of its observation
+        u[0], U[0, 0] = last[2], last[3]  # v / s, 1 / s of its observation
         return u, U
 
     def _build_whole(self):
         data = self._data()
-        filt, ckpt = self._filter(data)
-        return Sweep(self.series.t, filt, self._terminal(filt), *self._loops(serial=False),
-                     self._block, self._may_keep, forward=self._forward(data, ckpt))
+        source, last = self._filter(data)
+        return Sweep(self.series.t, source, self._terminal(last), *self._loops(serial=False),
+                     self._block, self._may_keep)
 
     def _build_split(self):
         """The two halves (left sweep, reversed right sweep), or None (see ``split``).
@@ -432,7 +509,7 @@ class KalmanPosterior(Posterior):
         # The left half's data run one point past it (to the time of its last row).
         data_left = self._data(0, j + 2)
         data_right = self._data(j, reverse=True)
-        (left, ck_left), (right, ck_right) = kalman_split.in_two_threads(
+        (left, last_left), (right, last_right) = kalman_split.in_two_threads(
             lambda: self._filter(tuple(x[:-1] for x in data_left), rows=j + 2),
             lambda: self._filter(tuple(x[:-1] for x in data_right), rows=n - j),
         )
@@ -445,8 +522,8 @@ class KalmanPosterior(Posterior):
             return s_map @ m, s_map @ P @ s_map.T
 
         s_inv = np.linalg.inv(s_map)
-        at_j = (ck_left[0][-1], ck_left[1][-1])  # filtered from the left, including point j
-        after_j = (ck_right[0][-1], ck_right[1][-1])  # from the right (point j + 1), reversed basis
+        at_j = last_left[:2]  # filtered from the left, including point j
+        after_j = last_right[:2]  # from the right (point j + 1), reversed basis
         back_to_j = across_gap(*after_j)  # the right half's prediction at t[j]
         ahead_to_next = across_gap(*at_j)  # the left half's prediction at t[j + 1]
         joined_j = kalman_split.join(at_j, mapped(*back_to_j), pinf)
@@ -461,9 +538,9 @@ class KalmanPosterior(Posterior):
         self.split_at = int(j)
         return (
             Sweep(data_left[0], left, left_end, *self._loops(serial=True), self._block,
-                  self._may_keep, serial=True, forward=self._forward(data_left, ck_left)),
+                  self._may_keep, serial=True),
             Sweep(data_right[0], right, right_end, *self._loops(serial=True), self._block,
-                  self._may_keep, serial=True, forward=self._forward(data_right, ck_right)),
+                  self._may_keep, serial=True),
         )
 
     def _latent(self, t):

@@ -1,22 +1,21 @@
-"""One direction of a Kalman posterior: stored filter output, smoothed block by block.
+"""One direction of a Kalman posterior: filter output, smoothed block by block.
 
-A :class:`Sweep` holds the filter output of a run of sorted times and the
-backward quantity at its last time. That quantity is what the smoother
-carries: the smoothed state (mean and covariance) for the general loops'
-RTS smoother, the adjoint (a vector and a matrix of the same shapes) for the
-adjoint smoother of the loops specialised to d <= 3. From these it answers
-queries: the backward quantities of a block are rebuilt from the checkpoint
-at the block's end, so memory stays at the filter output plus one state per
-block, and the predictions equal those of one full smoother pass exactly.
-The filtered states a block's queries start from come from a ``forward``
-callable: slices of stored states, or (specialised loops) states
-recomputed from a checkpoint of the filter at the block's start, so that
-per point only the filter's observation terms are kept.
+A :class:`Sweep` holds the filter output of a run of sorted times (through a
+``window`` callable) and the backward quantity at its last time. That
+quantity is what the smoother carries: the smoothed state (mean and
+covariance) for the general loops' RTS smoother, the adjoint (a vector and a
+matrix of the same shapes) for the adjoint smoother of the loops specialised
+to d <= 3. From these it answers queries: the backward quantities of a
+block are rebuilt from the checkpoint at the block's end, so memory stays at
+the filter output plus one state per block, and the predictions equal those
+of one full smoother pass exactly. The filter output of a block is a slice
+of stored arrays, or (a lean posterior) recomputed from a checkpoint of the
+filter at the block's start, so that nothing of length n is kept.
 The first prediction runs the backward pass over all blocks, predicting its
 own queries on the way and recording the checkpoints.
 
-A sweep knows its loops only as two callables built by the posterior, so the
-same code serves both smoothers.
+A sweep knows its loops only as callables built by the posterior, so the
+same code serves both smoothers and both ways of storing the filter.
 """
 
 from __future__ import annotations
@@ -33,42 +32,43 @@ class Sweep:
     ----------
     t : ndarray of shape (n,)
         Sorted times.
-    filt : tuple of ndarray
-        What the smoother reads of the filter, each of first axis n: the
-        filtered means (n, d) and covariances (n, d, d) for RTS, the
-        observation terms (n, d + 2) for the adjoint smoother.
+    window : callable
+        ``window(lo, hi, fresh)``: the filter's output at indices ``lo:hi``
+        (``lo`` is 0 or one before a block start), as ``(rows, states)``:
+        ``rows`` what the smoother reads (the filtered means (m, d) and
+        covariances (m, d, d) for RTS, the observation terms (m, d + 2) for
+        the adjoint smoother), ``states`` the filtered means and covariances.
+        Slices of stored arrays, or recomputed from a checkpoint into buffers
+        that the next call may overwrite; ``fresh=True`` asks for arrays that
+        nothing else will write (they are kept). It may also offer
+        ``run_blocks(t, terminal, j_lo, j_hi, tq, idx, mean, var, ckpt)``:
+        the backward pass over blocks ``j_lo .. j_hi - 1`` and their sorted
+        queries in one compiled call, as :meth:`latent` would run it block by
+        block (a lean posterior's source, ``RefilteredOutput``).
     terminal : tuple of ndarray
         The backward quantity at ``t[-1]``: vector (d,) and matrix (d, d).
     smooth : callable
-        ``smooth(t, filt, ms, Ps)``: the backward recursion over a window
-        (``filt`` sliced to it), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
+        ``smooth(t, rows, ms, Ps)``: the backward recursion over a window
+        (``rows`` of ``window``), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
     predict : callable
         ``predict(tq, iq, t, filtered, smoothed, mean_out, var_out)`` for
         queries whose window indices ``iq`` are the last data point at or
-        before them; ``filtered`` are the window's filtered means and
-        covariances (see ``forward``).
+        before them; ``filtered`` are the window's filtered states.
     block : int
         Points per smoother block.
     may_keep : bool
-        Keep every block's backward quantities (and filtered states, when
-        ``forward`` recomputes them) from the second prediction on.
+        Keep every block's backward quantities (and filtered states) from the
+        second prediction on.
     serial : bool, default False
         Locate queries in the calling thread (for sweeps run two at once in
         threads; ``predict`` must then be serial too).
-    forward : callable, optional
-        ``forward(lo, end, out)``: filtered means and covariances at indices
-        ``lo:end`` (``lo`` is 0 or one before a block start), written into
-        ``out`` (arrays of at least ``end - lo`` rows) or returned as views.
-        Default (RTS): slices of ``filt[0]``, ``filt[1]``.
     """
 
-    def __init__(self, t, filt, terminal, smooth, predict, block, may_keep, serial=False,
-                 forward=None):
+    def __init__(self, t, window, terminal, smooth, predict, block, may_keep, serial=False):
         self.t = t
-        self.filt = filt
         n, d = t.size, terminal[0].shape[0]
         self.terminal = terminal
-        self._forward = forward
+        self.source = window
         self._smooth, self._predict = smooth, predict
         self._serial = bool(serial)
         self.block = int(block)
@@ -76,10 +76,13 @@ class Sweep:
         nb = self.starts.size
         self.ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
         self.have_ckpt = False
+        self._ckpt_from = nb  # the checkpoints of blocks ckpt_from .. nb - 1 are known
         self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
-        # Buffers of the blocks not kept, reused block after block: memory that
-        # is touched again costs no page faults, which are slow on virtual machines.
-        self._scratch = {}
+        self._last_window = None  # ((lo, hi), window output) of the last block
+        # The backward buffer of the blocks not kept, reused block after block:
+        # memory that is touched again costs no page faults, which are slow on
+        # virtual machines.
+        self._scratch = None
         self.may_keep = bool(may_keep)
         # (lo, end) -> (filtered, backward) of a block, filled from the second prediction on
         self.kept = {}
@@ -91,11 +94,15 @@ class Sweep:
     def _block_end(self, j):
         return int(self.starts[j + 1]) if j + 1 < self.starts.size else self.n
 
-    def _buffers(self, key, d):
-        if key not in self._scratch:
-            rows = min(self.block + 2, self.n)
-            self._scratch[key] = (np.empty((rows, d)), np.empty((rows, d, d)))
-        return self._scratch[key]
+    def _window(self, lo, end, fresh=False):
+        """``window``'s output over ``lo:end`` and one index past it (if any)."""
+        hi = min(end + 1, self.n)
+        if fresh:
+            return self.source(lo, hi, True)
+        last = self._last_window
+        if last is None or last[0] != (lo, hi):
+            last = self._last_window = ((lo, hi), self.source(lo, hi, False))
+        return last[1]
 
     def smoothed(self, lo, end):
         """Backward vectors (end - lo, d) and matrices at indices ``lo:end``.
@@ -109,7 +116,8 @@ class Sweep:
         cached = self._cache
         if cached is not None and cached[0] == lo and cached[1] == end:
             ms, Ps = cached[2], cached[3]
-            if keep:  # they may live in a scratch buffer
+            states = self._window(lo, end, fresh=keep)[1]
+            if keep:  # they may live in the scratch buffer
                 ms, Ps = ms.copy(), Ps.copy()
         else:
             d = self.terminal[0].shape[0]
@@ -117,32 +125,29 @@ class Sweep:
             if keep:
                 ms, Ps = np.empty((hi - lo, d)), np.empty((hi - lo, d, d))
             else:
-                ms, Ps = (a[:hi - lo] for a in self._buffers("backward", d))
+                if self._scratch is None:
+                    rows = min(self.block + 2, self.n)
+                    self._scratch = (np.empty((rows, d)), np.empty((rows, d, d)))
+                ms, Ps = (a[:hi - lo] for a in self._scratch)
             if end >= self.n:
                 ms[-1], Ps[-1] = self.terminal
             else:
                 j = end // self.block
                 ms[-1], Ps[-1] = self.ckpt[0][j], self.ckpt[1][j]
-            self._smooth(self.t[lo:hi], tuple(a[lo:hi] for a in self.filt), ms, Ps)
+            rows, states = self._window(lo, end, fresh=keep)
+            self._smooth(self.t[lo:hi], rows, ms, Ps)
             ms, Ps = ms[:end - lo], Ps[:end - lo]
         self._cache = (lo, end, ms, Ps)
         if keep:
-            self.kept[(lo, end)] = (self._filtered(lo, end, fresh=True), (ms, Ps))
+            self.kept[(lo, end)] = (tuple(a[:end - lo] for a in states), (ms, Ps))
         return ms, Ps
 
-    def _filtered(self, lo, end, fresh=False):
+    def _filtered(self, lo, end):
         """Filtered means and covariances at indices ``lo:end`` (a block's window)."""
         kept = self.kept.get((lo, end))
         if kept is not None:
             return kept[0]
-        if self._forward is None:
-            return self.filt[0][lo:end], self.filt[1][lo:end]
-        d = self.terminal[0].shape[0]
-        if fresh:
-            out = (np.empty((end - lo, d)), np.empty((end - lo, d, d)))
-        else:
-            out = tuple(a[:end - lo] for a in self._buffers("forward", d))
-        return self._forward(lo, end, out)
+        return tuple(a[:end - lo] for a in self._window(lo, end)[1])
 
     def latent(self, tq, out=None, known_sorted=False):
         """Posterior mean and variance of the latent process (zero prior mean) at ``tq``.
@@ -159,6 +164,11 @@ class Sweep:
         else:
             in_order = search.locate(self.t, tq, idx)
         mean, var = out if out is not None else (np.empty(tq.size), np.empty(tq.size))
+        run_blocks = getattr(self.source, "run_blocks", None)
+        if in_order and run_blocks is not None and not self.kept:
+            if tq.size:
+                self._run_blocks(run_blocks, tq, idx, mean, var)
+            return mean, var
         # The queries of each block (that of the smoothed state they need, the next
         # data point's): slices of a sorted grid, else groups of indices.
         jobs = {}
@@ -193,11 +203,22 @@ class Sweep:
                 self.ckpt[1][j] = Ps[start - lo]
                 if j in jobs:
                     run(j, jobs[j])
-            self.have_ckpt = True
+            self.have_ckpt, self._ckpt_from = True, 0
         else:
             for j, sel in jobs.items():
                 run(j, sel)
         return mean, var
+
+    def _run_blocks(self, run_blocks, tq, idx, mean, var):
+        """Sorted queries through the source's compiled pass over the blocks they need."""
+        nb, block = self.starts.size, self.block
+        # query -> block of its next data point (as the jobs of ``latent``)
+        j_lo = min((int(idx[0]) + 1) // block, nb - 1)
+        j_hi = min((int(idx[-1]) + 1) // block, nb - 1) + 1
+        j_hi = max(j_hi, min(self._ckpt_from, nb))  # start where the adjoint is known
+        run_blocks(self.t, self.terminal, j_lo, j_hi, tq, idx, mean, var, self.ckpt)
+        self._ckpt_from = min(self._ckpt_from, j_lo)
+        self.have_ckpt = self._ckpt_from == 0
 
     def _predict_block(self, j, tq, idx, m_out, v_out):
         """Queries whose next data point lies in block ``j``; writes ``m_out``, ``v_out``."""
