@@ -9,7 +9,8 @@ Usage::
 For each kernel and n, with all four parameters free (amplitude, scale, mean,
 excess noise), times per point of: the log marginal likelihood, likelihood
 plus gradient, and the posterior at n query times (a new posterior and its
-n predictions; n more predictions from it, which keeps its smoothed states
+n predictions; n more predictions from it: a lean posterior (d >= 2) runs its
+compiled block pass again, a stored one (d = 1) keeps its smoothed states
 from its second prediction on; and, as ``resmooth``, n more predictions
 from a posterior made with ``keep=False``, which re-smooths every time; and, as ``onepass``,
 a new posterior and its n predictions built in one sequential pass, where the default

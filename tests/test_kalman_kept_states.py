@@ -56,11 +56,10 @@ def test_the_memory_budget_decides_by_default(case, monkeypatch):
     monkeypatch.setenv("LONGWAVE_KALMAN_STATES_MB", "1")
     big = Series(np.arange(60_000.0), np.zeros(60_000), 0.1)  # 60000 * 20 doubles = 9.2 MB
     assert not KalmanPosterior(model, big)._may_keep
-    d3 = Model(Matern52(amplitude=1.0, scale=8.0), excess_noise=0.05)
-    assert KalmanPosterior(d3, series, fast=True)._lean  # d >= 2: lean at any size
     d1 = Model(Matern12(amplitude=1.0, scale=8.0), excess_noise=0.05)
-    assert KalmanPosterior(d1, big, fast=True)._lean  # 60000 * 5 doubles do not fit 1 MB
-    assert not KalmanPosterior(d1, series, fast=True)._lean
+    assert KalmanPosterior(d1, series, fast=True)._lean  # the specialised loops: lean
+    assert not KalmanPosterior(d1, series, fast=True, lean=False)._lean
+    assert not KalmanPosterior(model, big)._lean  # the general loops store their states
 
 
 @pytest.mark.parametrize("split", [False, True])

@@ -68,13 +68,12 @@ class Settings:
         once, so memory stays O(m * chunk) whatever n is.
     kalman_states_mb : int
         Memory in MB a Kalman posterior may spend on arrays of length n
-        (``LONGWAVE_KALMAN_STATES_MB``, default 128). The general loops and
-        the specialised ones for d = 1 store the filter's output when it
-        fits; the specialised ones for d >= 2 are lean whatever it is (one
-        state per block, recomputed per block: see ``KalmanPosterior``).
-        From a second prediction on, every block's states are kept when
-        ``2 n (d + d^2)`` doubles fit. Small on purpose: on virtual
-        machines, touching fresh memory costs 0.15 to 2 ms per MB.
+        (``LONGWAVE_KALMAN_STATES_MB``, default 128): from a second
+        prediction on, a posterior queried block by block keeps every
+        block's states when ``2 n (d + d^2)`` doubles fit. Small on purpose:
+        on virtual machines, touching fresh memory costs 0.15 to 2 ms per MB.
+        (The specialised loops' posteriors are lean at any size; see
+        ``KalmanPosterior``.)
     split_min_n : int
         Shortest series whose Kalman posterior is built in two halves on two
         cores when numba may use two threads (``LONGWAVE_SPLIT_MIN_N``,

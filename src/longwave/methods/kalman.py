@@ -312,16 +312,16 @@ class KalmanPosterior(Posterior):
 
     Memory, with d the state dimension (2 for Matérn-3/2): the general loops
     store every filtered state, ``n (d + d^2)`` doubles. The specialised ones
-    are lean (``lean``) for d >= 2: they keep one filtered state per block
+    are lean by default (``lean``): they keep one filtered state per block
     and nothing of length n but the data, re-running the filter over a block
     when they smooth and predict there; sorted queries then run the whole
-    backward pass in one compiled call (``blocks_pass``). For d = 1 they
-    store the filtered states and the observation terms the adjoint reads
-    (``n (2 d + 2 + d^2)`` doubles) while that fits ``kalman_states_mb``.
-    Why: storing costs the memory traffic of first touching it, which on
-    the virtual machines measured was 0.15 to 2 ms per MB, more than the
-    filter pass that recomputes it once per point holds more than a few
-    numbers (``bench/bench_kalman.py``, figures in DEVELOPERS.md).
+    backward pass in one compiled call (``blocks_pass``). Storing every
+    state and the observation terms the adjoint reads (``lean=False``,
+    ``n (2 d + 2 + d^2)`` doubles) costs the memory traffic of first
+    touching them, which on the virtual machines measured was 0.15 to 2 ms
+    per MB: as much as or more than the filter pass that recomputes them
+    (``bench/bench_kalman.py``, figures in DEVELOPERS.md), and it grows
+    the posterior with n.
 
     On two cores a long series is built in two halves at once: the left half
     filtered forwards, the right half backwards in time, joined at one state
@@ -350,9 +350,8 @@ class KalmanPosterior(Posterior):
         virtual machines.
     lean : bool, optional
         Specialised loops only. Keep one filtered state per block and re-run
-        the filter over a block when a prediction needs it, instead of
-        storing every state. Default: for d >= 2, or when the stored arrays
-        would not fit ``kalman_states_mb``.
+        the filter over a block when a prediction needs it (default), or
+        store every state (False).
     split : bool, optional
         Build in two halves on two threads. Default: when ``fast`` applies,
         the series has at least ``split_min_n`` points and numba may use two
@@ -381,9 +380,7 @@ class KalmanPosterior(Posterior):
         n, d = series.n, ss.dim
         config = settings()
         states, budget = n * (d + d * d) * 8, config.kalman_states_mb * 2**20
-        if lean is None:  # see the class docstring (lean) for why d >= 2 is lean
-            lean = d >= 2 or n * (2 * d + 2 + d * d) * 8 > budget
-        self._lean = form is not None and bool(lean)
+        self._lean = form is not None and (lean is None or bool(lean))  # why: class docstring
         default_block = _LEAN_BLOCK if self._lean else config.chunk_size
         self._block = max(int(block or default_block), 2)  # checkpoints need 2
         self._may_keep = 2 * states <= budget if keep is None else bool(keep)
