@@ -113,3 +113,11 @@ def test_compiled_block_pass_equals_the_block_by_block_path(case, split):
     np.testing.assert_allclose(got.mean, exact.mean, rtol=1e-8, atol=1e-9)
     np.testing.assert_allclose(got.var, exact.var, rtol=1e-8, atol=1e-10)
     assert all(sweep.have_ckpt for sweep in one_go._sweeps)
+    # the paths share buffers: block by block, then one go over late blocks, then block by block
+    mixed = KalmanPosterior(model, series, block=64, fast=True, split=split, lean=True,
+                            keep=False)
+    first = mixed.predict(queries)
+    mixed.predict(late)
+    again = mixed.predict(queries)
+    np.testing.assert_array_equal(again.mean, first.mean)
+    np.testing.assert_array_equal(again.var, first.var)

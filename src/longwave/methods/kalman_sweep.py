@@ -1,7 +1,7 @@
 """One direction of a Kalman posterior: filter output, smoothed block by block.
 
 A :class:`Sweep` holds the filter output of a run of sorted times (through a
-``window`` callable) and the backward quantity at its last time. That
+``source`` callable) and the backward quantity at its last time. That
 quantity is what the smoother carries: the smoothed state (mean and
 covariance) for the general loops' RTS smoother, the adjoint (a vector and a
 matrix of the same shapes) for the adjoint smoother of the loops specialised
@@ -32,8 +32,8 @@ class Sweep:
     ----------
     t : ndarray of shape (n,)
         Sorted times.
-    window : callable
-        ``window(lo, hi, fresh)``: the filter's output at indices ``lo:hi``
+    source : callable
+        ``source(lo, hi, fresh)``: the filter's output at indices ``lo:hi``
         (``lo`` is 0 or one before a block start), as ``(rows, states)``:
         ``rows`` what the smoother reads (the filtered means (m, d) and
         covariances (m, d, d) for RTS, the observation terms (m, d + 2) for
@@ -49,7 +49,7 @@ class Sweep:
         The backward quantity at ``t[-1]``: vector (d,) and matrix (d, d).
     smooth : callable
         ``smooth(t, rows, ms, Ps)``: the backward recursion over a window
-        (``rows`` of ``window``), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
+        (``rows`` of ``source``), starting from what ``ms[-1]``, ``Ps[-1]`` hold.
     predict : callable
         ``predict(tq, iq, t, filtered, smoothed, mean_out, var_out)`` for
         queries whose window indices ``iq`` are the last data point at or
@@ -64,11 +64,11 @@ class Sweep:
         threads; ``predict`` must then be serial too).
     """
 
-    def __init__(self, t, window, terminal, smooth, predict, block, may_keep, serial=False):
+    def __init__(self, t, source, terminal, smooth, predict, block, may_keep, serial=False):
         self.t = t
         n, d = t.size, terminal[0].shape[0]
         self.terminal = terminal
-        self.source = window
+        self.source = source
         self._smooth, self._predict = smooth, predict
         self._serial = bool(serial)
         self.block = int(block)
@@ -95,7 +95,7 @@ class Sweep:
         return int(self.starts[j + 1]) if j + 1 < self.starts.size else self.n
 
     def _window(self, lo, end, fresh=False):
-        """``window``'s output over ``lo:end`` and one index past it (if any)."""
+        """``source``'s output over ``lo:end`` and one index past it (if any)."""
         hi = min(end + 1, self.n)
         if fresh:
             return self.source(lo, hi, True)
@@ -216,6 +216,8 @@ class Sweep:
         j_lo = min((int(idx[0]) + 1) // block, nb - 1)
         j_hi = min((int(idx[-1]) + 1) // block, nb - 1) + 1
         j_hi = max(j_hi, min(self._ckpt_from, nb))  # start where the adjoint is known
+        # The pass writes the source's buffers: what was cached from them is stale.
+        self._last_window = self._cache = None
         run_blocks(self.t, self.terminal, j_lo, j_hi, tq, idx, mean, var, self.ckpt)
         self._ckpt_from = min(self._ckpt_from, j_lo)
         self.have_ckpt = self._ckpt_from == 0
