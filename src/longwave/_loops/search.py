@@ -107,3 +107,12 @@ def locate_serial(t, tq, idx, known_sorted=False):
     if tq.size:
         _merge_range(t, tq, idx, 0, tq.size)
     return True
+
+
+@njit(cache=True, nogil=True)
+def reverse_in_place(x):
+    """Reverse ``x`` in place: a split posterior's right half answers its
+    queries in reversed time, into the caller's output, without a copy."""
+    n = x.size
+    for i in range(n // 2):
+        x[i], x[n - 1 - i] = x[n - 1 - i], x[i]

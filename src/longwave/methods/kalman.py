@@ -479,9 +479,10 @@ class KalmanPosterior(Posterior):
         if search.is_sorted(t):  # the usual grid: two slices, the right one reversed
             c = int(np.searchsorted(t, t_join, side="right"))
 
-            def on_right():
-                m_r, v_r = right.latent(-t[c:][::-1], known_sorted=True)
-                mean[c:], var[c:] = m_r[::-1], v_r[::-1]
+            def on_right():  # into the outputs in reversed order, then turned round
+                right.latent(-t[c:][::-1], out=(mean[c:], var[c:]), known_sorted=True)
+                search.reverse_in_place(mean[c:])
+                search.reverse_in_place(var[c:])
 
             kalman_split.in_two_threads(
                 lambda: left.latent(t[:c], out=(mean[:c], var[:c]), known_sorted=True), on_right)
