@@ -178,11 +178,11 @@ def test_extreme_innovation_variances_keep_the_log_determinant(rng):
 
 
 def _filter_every_state(form, series, scal, work):
-    """``(mf, Pf, obs)`` of every point (``filter_store``)."""
+    """``(mf, Pf, obs)`` of every point (``refilter`` from the prior: a whole pass)."""
     n, d = series.n, form.dim
     obs, mf, Pf = np.empty((n, d + 2)), np.empty((n, d)), np.empty((n, d, d))
-    form.loop("filter_store")((series.t, series.y, series.err), scal, form.pinf, form.trans,
-                              work, obs, mf, Pf)
+    form.loop("refilter")((series.t, series.y, series.err), scal, form.pinf, form.trans,
+                          work, obs, mf, Pf, 0)
     return mf, Pf, obs
 
 

@@ -340,33 +340,6 @@ def filter_body(code, tr, between=None):
     observe_update(code, d)
 
 
-def gen_filter_store(code, tr):
-    """The filter of a posterior that stores every state and what the adjoint reads."""
-    d = tr.d
-    code(
-        "@njit(cache=True, nogil=True, fastmath={'contract'})",
-        f"def filter_store_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf):",
-        f'    """Observation terms and filtered state of every point, d = {d}.',
-        "",
-        "    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each",
-        "    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the",
-        "    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.",
-        "    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.",
-        '    """',
-    )
-    code.indent()
-    code("t, y, err = data", "mean, excess = scal", "n = t.size")
-    load_pinf(code, d)
-    tr.preamble(code)
-    init_state(code, d)
-    block_loop_head(code, tr)
-    filter_body(code, tr, store_obs)
-    store_filtered(code, d, "i")
-    code.dedent()
-    code.dedent()
-    code.dedent()
-
-
 def gen_filter_checkpoints(code, tr):
     """The filter of a lean posterior: one state per block, nothing per point.
 
@@ -416,7 +389,11 @@ def gen_refilter(code, tr):
         f"def refilter_d{d}{tr.suffix}(data, scal, pinf, trans, work, obs, mf, Pf, first):",
         f'    """Observation terms and filtered states of a window, d = {d}.',
         "",
-        "    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).",
+        "    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each",
+        "    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the",
+        "    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;",
+        "    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.",
+        "    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).",
         "    ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on",
         "    entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0",
         "    of ``obs`` is left as it is. The same arithmetic as a whole pass, so a",
@@ -690,7 +667,7 @@ def gen_adjoint(code, tr):
         U_k = F^T U_(k+1) F + (1 / s_k) e_0 e_0^T,
 
     with no inverse and no factorisation: all it reads of the filter is
-    ``obs`` (written by ``filter_store``). Its chain is one congruence, as
+    ``obs`` (written by ``refilter``). Its chain is one congruence, as
     short as the filter's. A repeated time has ``A = I``.
     """
     d = tr.d
@@ -1059,7 +1036,7 @@ def gen_predict_serial(code, tr):
     gen_predict(code, tr, serial=True)
 
 
-GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_store, gen_filter_checkpoints,
+GENERATORS = (gen_loglik, gen_loglik_grad, gen_filter_checkpoints,
               gen_refilter, gen_adjoint,
               gen_predict,
               gen_predict_serial, gen_blocks_pass)

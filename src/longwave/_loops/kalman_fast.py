@@ -1820,487 +1820,6 @@ def loglik_grad_d3_multi(data, scal, pinf, trans, sens, work):
 
 
 @njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_single(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 1.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    m0 = 0.0
-    M00 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                a00 = ee * (c000)
-                w00 = a00 * M00
-                M00 = w00 * a00
-                x0 = a00 * m0
-                m0 = x0
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            m0 += h0 * g
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            Pf[i, 0, 0] = M00 + pf00
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_single(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 2.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    c001 = coef[0, 0, 0, 1]
-    c010 = coef[0, 0, 1, 0]
-    c011 = coef[0, 0, 1, 1]
-    c100 = coef[0, 1, 0, 0]
-    c101 = coef[0, 1, 0, 1]
-    c110 = coef[0, 1, 1, 0]
-    c111 = coef[0, 1, 1, 1]
-    m0 = 0.0
-    m1 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M11 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * c100)
-                a01 = ee * (c001 + hh * c101)
-                a10 = ee * (c010 + hh * c110)
-                a11 = ee * (c011 + hh * c111)
-                w00 = a00 * M00 + a01 * M01
-                w01 = a00 * M01 + a01 * M11
-                w10 = a10 * M00 + a11 * M01
-                w11 = a10 * M01 + a11 * M11
-                M00 = w00 * a00 + w01 * a01
-                M01 = w00 * a10 + w01 * a11
-                M11 = w10 * a10 + w11 * a11
-                x0 = a00 * m0 + a01 * m1
-                x1 = a10 * m0 + a11 * m1
-                m0 = x0
-                m1 = x1
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            M11 -= h1 * inv * h1
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 1, 1] = M11 + pf11
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_single(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 3.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
-    rate0 = trans[0][0]
-    coef = trans[2]
-    c000 = coef[0, 0, 0, 0]
-    c001 = coef[0, 0, 0, 1]
-    c002 = coef[0, 0, 0, 2]
-    c010 = coef[0, 0, 1, 0]
-    c011 = coef[0, 0, 1, 1]
-    c012 = coef[0, 0, 1, 2]
-    c020 = coef[0, 0, 2, 0]
-    c021 = coef[0, 0, 2, 1]
-    c022 = coef[0, 0, 2, 2]
-    c100 = coef[0, 1, 0, 0]
-    c101 = coef[0, 1, 0, 1]
-    c102 = coef[0, 1, 0, 2]
-    c110 = coef[0, 1, 1, 0]
-    c111 = coef[0, 1, 1, 1]
-    c112 = coef[0, 1, 1, 2]
-    c120 = coef[0, 1, 2, 0]
-    c121 = coef[0, 1, 2, 1]
-    c122 = coef[0, 1, 2, 2]
-    c200 = coef[0, 2, 0, 0]
-    c201 = coef[0, 2, 0, 1]
-    c202 = coef[0, 2, 0, 2]
-    c210 = coef[0, 2, 1, 0]
-    c211 = coef[0, 2, 1, 1]
-    c212 = coef[0, 2, 1, 2]
-    c220 = coef[0, 2, 2, 0]
-    c221 = coef[0, 2, 2, 1]
-    c222 = coef[0, 2, 2, 2]
-    m0 = 0.0
-    m1 = 0.0
-    m2 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M02 = 0.0
-    M11 = 0.0
-    M12 = 0.0
-    M22 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_decay(cnt, rate0, work)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                ee = work[ROW_E, b]
-                hh = work[ROW_DT, b]
-                a00 = ee * (c000 + hh * (c100 + hh * c200))
-                a01 = ee * (c001 + hh * (c101 + hh * c201))
-                a02 = ee * (c002 + hh * (c102 + hh * c202))
-                a10 = ee * (c010 + hh * (c110 + hh * c210))
-                a11 = ee * (c011 + hh * (c111 + hh * c211))
-                a12 = ee * (c012 + hh * (c112 + hh * c212))
-                a20 = ee * (c020 + hh * (c120 + hh * c220))
-                a21 = ee * (c021 + hh * (c121 + hh * c221))
-                a22 = ee * (c022 + hh * (c122 + hh * c222))
-                w00 = a00 * M00 + a01 * M01 + a02 * M02
-                w01 = a00 * M01 + a01 * M11 + a02 * M12
-                w02 = a00 * M02 + a01 * M12 + a02 * M22
-                w10 = a10 * M00 + a11 * M01 + a12 * M02
-                w11 = a10 * M01 + a11 * M11 + a12 * M12
-                w12 = a10 * M02 + a11 * M12 + a12 * M22
-                w20 = a20 * M00 + a21 * M01 + a22 * M02
-                w21 = a20 * M01 + a21 * M11 + a22 * M12
-                w22 = a20 * M02 + a21 * M12 + a22 * M22
-                M00 = w00 * a00 + w01 * a01 + w02 * a02
-                M01 = w00 * a10 + w01 * a11 + w02 * a12
-                M02 = w00 * a20 + w01 * a21 + w02 * a22
-                M11 = w10 * a10 + w11 * a11 + w12 * a12
-                M12 = w10 * a20 + w11 * a21 + w12 * a22
-                M22 = w20 * a20 + w21 * a21 + w22 * a22
-                x0 = a00 * m0 + a01 * m1 + a02 * m2
-                x1 = a10 * m0 + a11 * m1 + a12 * m2
-                x2 = a20 * m0 + a21 * m1 + a22 * m2
-                m0 = x0
-                m1 = x1
-                m2 = x2
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            h2 = M02 + pf02
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            obs[i, 4] = h2 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            m2 += h2 * g
-            M11 -= h1 * inv * h1
-            M12 -= h1 * inv * h2
-            M22 -= h2 * inv * h2
-            M02 = h2 * r * inv - pf02
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            mf[i, 2] = m2
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 0, 2] = M02 + pf02
-            Pf[i, 2, 0] = Pf[i, 0, 2]
-            Pf[i, 1, 1] = M11 + pf11
-            Pf[i, 1, 2] = M12 + pf12
-            Pf[i, 2, 1] = Pf[i, 1, 2]
-            Pf[i, 2, 2] = M22 + pf22
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 1.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    m0 = 0.0
-    M00 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                w00 = a00 * M00
-                M00 = w00 * a00
-                x0 = a00 * m0
-                m0 = x0
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            m0 += h0 * g
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            Pf[i, 0, 0] = M00 + pf00
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 2.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf11 = pinf[1, 1]
-    m0 = 0.0
-    m1 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M11 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a10 = work[ROW_A + 2, b]
-                a11 = work[ROW_A + 3, b]
-                w00 = a00 * M00 + a01 * M01
-                w01 = a00 * M01 + a01 * M11
-                w10 = a10 * M00 + a11 * M01
-                w11 = a10 * M01 + a11 * M11
-                M00 = w00 * a00 + w01 * a01
-                M01 = w00 * a10 + w01 * a11
-                M11 = w10 * a10 + w11 * a11
-                x0 = a00 * m0 + a01 * m1
-                x1 = a10 * m0 + a11 * m1
-                m0 = x0
-                m1 = x1
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            M11 -= h1 * inv * h1
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 1, 1] = M11 + pf11
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
-def filter_store_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf):
-    """Observation terms and filtered state of every point, d = 3.
-
-    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
-    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
-    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them.
-    ``mf`` (n, d) and ``Pf`` (n, d, d) receive the filtered states.
-    """
-    t, y, err = data
-    mean, excess = scal
-    n = t.size
-    pf00 = pinf[0, 0]
-    pf01 = pinf[0, 1]
-    pf02 = pinf[0, 2]
-    pf11 = pinf[1, 1]
-    pf12 = pinf[1, 2]
-    pf22 = pinf[2, 2]
-    m0 = 0.0
-    m1 = 0.0
-    m2 = 0.0
-    M00 = 0.0
-    M01 = 0.0
-    M02 = 0.0
-    M11 = 0.0
-    M12 = 0.0
-    M22 = 0.0
-    block = work.shape[1]
-    dtr = work[ROW_DT]
-    for start in range(0, n, block):
-        cnt = min(block, n - start)
-        step_sizes(t, start, cnt, dtr)
-        fill_transition(cnt, trans, work, ROW_A)
-        for b in range(cnt):
-            i = start + b
-            if dtr[b] > 0.0:
-                a00 = work[ROW_A + 0, b]
-                a01 = work[ROW_A + 1, b]
-                a02 = work[ROW_A + 2, b]
-                a10 = work[ROW_A + 3, b]
-                a11 = work[ROW_A + 4, b]
-                a12 = work[ROW_A + 5, b]
-                a20 = work[ROW_A + 6, b]
-                a21 = work[ROW_A + 7, b]
-                a22 = work[ROW_A + 8, b]
-                w00 = a00 * M00 + a01 * M01 + a02 * M02
-                w01 = a00 * M01 + a01 * M11 + a02 * M12
-                w02 = a00 * M02 + a01 * M12 + a02 * M22
-                w10 = a10 * M00 + a11 * M01 + a12 * M02
-                w11 = a10 * M01 + a11 * M11 + a12 * M12
-                w12 = a10 * M02 + a11 * M12 + a12 * M22
-                w20 = a20 * M00 + a21 * M01 + a22 * M02
-                w21 = a20 * M01 + a21 * M11 + a22 * M12
-                w22 = a20 * M02 + a21 * M12 + a22 * M22
-                M00 = w00 * a00 + w01 * a01 + w02 * a02
-                M01 = w00 * a10 + w01 * a11 + w02 * a12
-                M02 = w00 * a20 + w01 * a21 + w02 * a22
-                M11 = w10 * a10 + w11 * a11 + w12 * a12
-                M12 = w10 * a20 + w11 * a21 + w12 * a22
-                M22 = w20 * a20 + w21 * a21 + w22 * a22
-                x0 = a00 * m0 + a01 * m1 + a02 * m2
-                x1 = a10 * m0 + a11 * m1 + a12 * m2
-                x2 = a20 * m0 + a21 * m1 + a22 * m2
-                m0 = x0
-                m1 = x1
-                m2 = x2
-            ei = err[i]
-            r = ei * ei + excess
-            h0 = M00 + pf00
-            h1 = M01 + pf01
-            h2 = M02 + pf02
-            s = h0 + r
-            v = y[i] - mean - m0
-            inv = 1.0 / s
-            g = v * inv
-            obs[i, 0] = g
-            obs[i, 1] = inv
-            obs[i, 2] = h0 * inv
-            obs[i, 3] = h1 * inv
-            obs[i, 4] = h2 * inv
-            m0 += h0 * g
-            m1 += h1 * g
-            m2 += h2 * g
-            M11 -= h1 * inv * h1
-            M12 -= h1 * inv * h2
-            M22 -= h2 * inv * h2
-            M02 = h2 * r * inv - pf02
-            M01 = h1 * r * inv - pf01
-            M00 = h0 * r * inv - pf00
-            mf[i, 0] = m0
-            mf[i, 1] = m1
-            mf[i, 2] = m2
-            Pf[i, 0, 0] = M00 + pf00
-            Pf[i, 0, 1] = M01 + pf01
-            Pf[i, 1, 0] = Pf[i, 0, 1]
-            Pf[i, 0, 2] = M02 + pf02
-            Pf[i, 2, 0] = Pf[i, 0, 2]
-            Pf[i, 1, 1] = M11 + pf11
-            Pf[i, 1, 2] = M12 + pf12
-            Pf[i, 2, 1] = Pf[i, 1, 2]
-            Pf[i, 2, 2] = M22 + pf22
-
-
-@njit(cache=True, nogil=True, fastmath={'contract'})
 def filter_checkpoints_d1_single(data, scal, pinf, trans, work, mf, Pf, stride):
     """Filtered states every ``stride`` points, d = 1; returns ``(v / s, 1 / s)``
     of the last point (its own adjoint).
@@ -2877,7 +2396,11 @@ def filter_checkpoints_d3_multi(data, scal, pinf, trans, work, mf, Pf, stride):
 def refilter_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 1.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
@@ -2930,7 +2453,11 @@ def refilter_d1_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
 def refilter_d2_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 2.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
@@ -3018,7 +2545,11 @@ def refilter_d2_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
 def refilter_d3_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 3.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
@@ -3163,7 +2694,11 @@ def refilter_d3_single(data, scal, pinf, trans, work, obs, mf, Pf, first):
 def refilter_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 1.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
@@ -3212,7 +2747,11 @@ def refilter_d1_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
 def refilter_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 2.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a
@@ -3288,7 +2827,11 @@ def refilter_d2_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
 def refilter_d3_multi(data, scal, pinf, trans, work, obs, mf, Pf, first):
     """Observation terms and filtered states of a window, d = 3.
 
-    ``first = 0``: from the prior, rows 0 .. n - 1 (as ``filter_store``).
+    ``obs`` (n, d + 2) receives what the adjoint smoother needs of each
+    observation: ``v / s`` (innovation over its variance), ``1 / s`` and the
+    Kalman gain ``K = P e_0 / s`` (``P`` predicted), as the filter forms them;
+    ``mf`` (n, d) and ``Pf`` (n, d, d) the filtered states.
+    ``first = 0``: from the prior, rows 0 .. n - 1 (a whole pass).
     ``first = 1``: from the filtered state in row 0 of ``mf``, ``Pf`` on
     entry (a checkpoint of ``filter_checkpoints``), rows 1 .. n - 1; row 0
     of ``obs`` is left as it is. The same arithmetic as a whole pass, so a

@@ -372,7 +372,7 @@ class KalmanPosterior(Posterior):
         the last point, and (specialised loops) its ``v / s`` and ``1 / s``.
 
         General loops: every filtered state is stored. Specialised loops:
-        every state and the observation terms (``filter_store``), or, lean,
+        every state and the observation terms (``refilter`` over the whole data), or, lean,
         one state per block (``filter_checkpoints``) from which the filter is
         re-run over a block (``refilter`` in ``_loops/kalman_fast.py``).
         """
@@ -389,8 +389,8 @@ class KalmanPosterior(Posterior):
         scal = (float(model.mean_value), float(model.excess_variance))
         if not self._lean:
             obs, mf, Pf = np.zeros((rows, d + 2)), np.zeros((rows, d)), np.zeros((rows, d, d))
-            form.loop("filter_store")(data, scal, self._pinf, self._trans, form.work(2),
-                                      obs[:m], mf[:m], Pf[:m])
+            form.loop("refilter")(data, scal, self._pinf, self._trans, form.work(2),
+                                  obs[:m], mf[:m], Pf[:m], 0)
             last = (mf[m - 1], Pf[m - 1], obs[m - 1, 0], obs[m - 1, 1])
             return StoredOutput((obs,), (mf, Pf)), last
         block = self._block
