@@ -75,7 +75,6 @@ class Sweep:
         self.starts = np.arange(0, n, self.block)
         nb = self.starts.size
         self.ckpt = (np.empty((nb, d)), np.empty((nb, d, d)))
-        self.have_ckpt = False
         self._ckpt_from = nb  # the checkpoints of blocks ckpt_from .. nb - 1 are known
         self._cache = None  # (lo, end, smoothed means, smoothed covariances) of the last block
         self._last_window = None  # ((lo, hi), window output) of the last block
@@ -90,6 +89,11 @@ class Sweep:
     @property
     def n(self) -> int:
         return self.t.size
+
+    @property
+    def have_ckpt(self) -> bool:
+        """Whether the smoother's checkpoint of every block is known."""
+        return self._ckpt_from == 0
 
     def _block_end(self, j):
         return int(self.starts[j + 1]) if j + 1 < self.starts.size else self.n
@@ -116,9 +120,9 @@ class Sweep:
         cached = self._cache
         if cached is not None and cached[0] == lo and cached[1] == end:
             ms, Ps = cached[2], cached[3]
-            states = self._window(lo, end, fresh=keep)[1]
             if keep:  # they may live in the scratch buffer
                 ms, Ps = ms.copy(), Ps.copy()
+                states = self._window(lo, end, fresh=True)[1]
         else:
             d = self.terminal[0].shape[0]
             hi = min(end + 1, self.n)
@@ -203,7 +207,7 @@ class Sweep:
                 self.ckpt[1][j] = Ps[start - lo]
                 if j in jobs:
                     run(j, jobs[j])
-            self.have_ckpt, self._ckpt_from = True, 0
+            self._ckpt_from = 0
         else:
             for j, sel in jobs.items():
                 run(j, sel)
@@ -215,12 +219,11 @@ class Sweep:
         # query -> block of its next data point (as the jobs of ``latent``)
         j_lo = min((int(idx[0]) + 1) // block, nb - 1)
         j_hi = min((int(idx[-1]) + 1) // block, nb - 1) + 1
-        j_hi = max(j_hi, min(self._ckpt_from, nb))  # start where the adjoint is known
+        j_hi = max(j_hi, self._ckpt_from)  # start where the adjoint is known
         # The pass writes the source's buffers: what was cached from them is stale.
         self._last_window = self._cache = None
         run_blocks(self.t, self.terminal, j_lo, j_hi, tq, idx, mean, var, self.ckpt)
         self._ckpt_from = min(self._ckpt_from, j_lo)
-        self.have_ckpt = self._ckpt_from == 0
 
     def _predict_block(self, j, tq, idx, m_out, v_out):
         """Queries whose next data point lies in block ``j``; writes ``m_out``, ``v_out``."""
