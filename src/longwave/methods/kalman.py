@@ -366,14 +366,14 @@ class KalmanPosterior(Posterior):
     def _filter(self, data, rows=None):
         """Filter ``data = (t, y, err)``; returns ``(source, last)``.
 
-        ``source`` is the :class:`Sweep`'s ``window`` callable over ``rows``
+        ``source`` is the :class:`Sweep`'s ``source`` callable over ``rows``
         rows (default: the data's length; rows past the data are never read
         by the smoother or the predictor). ``last`` is the filtered state at
         the last point, and (specialised loops) its ``v / s`` and ``1 / s``.
 
         General loops: every filtered state is stored. Specialised loops:
-        every state and the observation terms (``refilter`` over the whole data), or, lean,
-        one state per block (``filter_checkpoints``) from which the filter is
+        every state and the observation terms (``refilter`` over all the data),
+        or, lean, one state per block (``filter_checkpoints``) from which the filter is
         re-run over a block (``refilter`` in ``_loops/kalman_fast.py``).
         """
         model, form, d = self.model, self._form, self._ss.dim
