@@ -24,3 +24,31 @@ def test_locate_equals_searchsorted(rng, n_query):
         idx = np.empty(tq.size, dtype=np.int64)
         assert search.locate(t, tq, idx) is expect_sorted
         np.testing.assert_array_equal(idx, np.searchsorted(t, tq, side="right") - 1)
+
+
+@pytest.mark.parametrize("n", [0, 1, 2, 1023, 1024, 1025, 5000])
+def test_is_sorted_equals_numpy(rng, n):
+    # source: the definition, checked with numpy (np.all(np.diff(x) >= 0))
+    x = np.sort(rng.normal(size=n))
+    if n > 10:
+        x[n // 3:n // 3 + 5] = x[n // 3]  # ties are in order
+    assert search.is_sorted(x)
+    for at in {1, n // 2, n - 1} if n > 1 else ():
+        y = x.copy()
+        y[at] = y[at - 1] - 1.0  # one descent, at the start, middle or end of a stretch
+        assert search.is_sorted(y) is bool(np.all(np.diff(y) >= 0)) is False
+
+
+def test_first_at_or_after_and_sorted_locate_equal_searchsorted(rng):
+    t = _data_times(rng, 3000)
+    tq = np.sort(np.concatenate([rng.uniform(t[0] - 5.0, t[-1] + 5.0, 4000), t[::5]]))
+    for value in (t[0] - 1.0, t[0], t[17], t[-1], t[-1] + 1.0, 0.5 * (t[100] + t[101])):
+        for lo, hi in ((0, tq.size), (100, 2500), (7, 7)):
+            expect = np.searchsorted(tq[lo:hi], value, side="left") + lo
+            assert search.first_at_or_after(tq, value, lo, hi) == expect
+    # a window of the data, as the compiled lean pass locates a block's queries
+    window = t[999:2001]
+    inside = tq[(tq >= window[0]) & (tq < t[2001])]
+    idx = np.empty(inside.size, dtype=np.int64)
+    search.locate_sorted_serial(window, inside, idx)
+    np.testing.assert_array_equal(idx, np.searchsorted(window, inside, side="right") - 1)

@@ -69,6 +69,7 @@ from .blocked_transition import (
     step_sizes,
 )
 from .lanes import vadd, vfma, vload, vmax0, vmul, vsplat, vstore, vsub
+from .search import first_at_or_after, locate_sorted_serial
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -76,6 +77,8 @@ _FLUSH_HI = 1e100
 _DIRECT_LO = 1e-200
 _DIRECT_HI = 1e200
 PREDICT_CHUNK = 512
+# Queries a lean pass locates at a time (its index buffer stays in the L1 cache).
+LOCATE_CHUNK = 2048
 '''
 
 
@@ -967,16 +970,17 @@ def gen_blocks_pass(code, tr):
     code(
         "@njit(cache=True, nogil=True)",
         f"def blocks_pass{sfx}(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,",
-        "                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):",
+        "                 tq, out_mean, out_var, adj_ckpt, buffers, work):",
         f'    """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = {d}.',
         "",
         "    ``data`` may be one point shorter than ``t`` (a split half's last row),",
         "    ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``",
         "    the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if",
         "    any) is read from ``adj_ckpt`` and that of every block run is written",
-        "    there. ``tq`` are the sorted queries of these blocks with ``idx`` as",
-        "    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at",
-        "    least ``block + 2`` rows.",
+        "    there. ``tq`` are the sorted queries of these blocks; each block locates",
+        "    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array",
+        "    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``",
+        "    of at least ``block + 2`` rows.",
         '    """',
     )
     code.indent()
@@ -987,6 +991,7 @@ def gen_blocks_pass(code, tr):
         "n = t.size",
         "n_data = data[0].size",
         "qhi = tq.size",
+        "qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)",
         "for j in range(j_hi - 1, j_lo - 1, -1):",
     )
     code.indent()
@@ -1014,18 +1019,19 @@ def gen_blocks_pass(code, tr):
         f"adjoint{sfx}(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])",
         "adj_u[j] = lam[start - lo]",
         "adj_U[j] = Lam[start - lo]",
-        "# this block's queries: those whose next data point lies in it",
-        "qlo = qhi",
-        "if j == 0:",
-        "    qlo = 0",
-        "else:",
-        "    while qlo > 0 and idx[qlo - 1] >= start - 1:",
-        "        qlo -= 1",
-        "if qhi > qlo:",
-        "    w = end - lo",
-        f"    predict_serial{sfx}(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,",
+        "# this block's queries: those whose next data point lies in it, that is",
+        "# t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose",
+        "# indices are those the predictor reads (the last t <= tq lies in it)",
+        "qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)",
+        "w = end - lo",
+        "a = qlo",
+        "while a < qhi:",
+        "    b = min(a + LOCATE_CHUNK, qhi)",
+        "    locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])",
+        f"    predict_serial{sfx}(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,",
         "                 (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),",
-        "                 out_mean[qlo:qhi], out_var[qlo:qhi])",
+        "                 out_mean[a:b], out_var[a:b])",
+        "    a = b",
         "qhi = qlo",
     )
     code.dedent()

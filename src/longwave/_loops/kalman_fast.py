@@ -37,6 +37,7 @@ from .blocked_transition import (
     step_sizes,
 )
 from .lanes import vadd, vfma, vload, vmax0, vmul, vsplat, vstore, vsub
+from .search import first_at_or_after, locate_sorted_serial
 
 LOG_2PI = math.log(2.0 * math.pi)
 _FLUSH_LO = 1e-100
@@ -44,6 +45,8 @@ _FLUSH_HI = 1e100
 _DIRECT_LO = 1e-200
 _DIRECT_HI = 1e200
 PREDICT_CHUNK = 512
+# Queries a lean pass locates at a time (its index buffer stays in the L1 cache).
+LOCATE_CHUNK = 2048
 
 
 @njit(cache=True, fastmath={'contract'})
@@ -5228,16 +5231,17 @@ def predict_serial_d3_multi(tq, idx, t, pinf, trans, filt, adj, out_mean, out_va
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d1_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 1.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5245,6 +5249,7 @@ def blocks_pass_d1_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5269,33 +5274,35 @@ def blocks_pass_d1_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
         adjoint_d1_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d1_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d1_single(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo
 
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d2_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 2.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5303,6 +5310,7 @@ def blocks_pass_d2_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5327,33 +5335,35 @@ def blocks_pass_d2_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
         adjoint_d2_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d2_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d2_single(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo
 
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d3_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 3.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5361,6 +5371,7 @@ def blocks_pass_d3_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5385,33 +5396,35 @@ def blocks_pass_d3_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
         adjoint_d3_single(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d3_single(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d3_single(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo
 
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d1_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 1.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5419,6 +5432,7 @@ def blocks_pass_d1_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5443,33 +5457,35 @@ def blocks_pass_d1_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
         adjoint_d1_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d1_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d1_multi(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo
 
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d2_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 2.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5477,6 +5493,7 @@ def blocks_pass_d2_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5501,33 +5518,35 @@ def blocks_pass_d2_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
         adjoint_d2_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d2_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d2_multi(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo
 
 
 @njit(cache=True, nogil=True)
 def blocks_pass_d3_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo, j_hi,
-                 tq, idx, out_mean, out_var, adj_ckpt, buffers, work):
+                 tq, out_mean, out_var, adj_ckpt, buffers, work):
     """Blocks ``j_hi - 1`` down to ``j_lo`` of a lean sweep over times ``t``, d = 3.
 
     ``data`` may be one point shorter than ``t`` (a split half's last row),
     ``ckpt`` are the filter's checkpoints (``filter_checkpoints``), ``terminal``
     the adjoint at ``t[-1]``; the adjoint at the start of block ``j_hi`` (if
     any) is read from ``adj_ckpt`` and that of every block run is written
-    there. ``tq`` are the sorted queries of these blocks with ``idx`` as
-    ``search.locate`` gives it; ``buffers = (obs, mf, Pf, lam, Lam)`` of at
-    least ``block + 2`` rows.
+    there. ``tq`` are the sorted queries of these blocks; each block locates
+    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
+    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
+    of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5535,6 +5554,7 @@ def blocks_pass_d3_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     n = t.size
     n_data = data[0].size
     qhi = tq.size
+    qidx = np.empty(LOCATE_CHUNK, dtype=np.int64)
     for j in range(j_hi - 1, j_lo - 1, -1):
         start = j * block
         end = min(start + block, n)
@@ -5559,16 +5579,17 @@ def blocks_pass_d3_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
         adjoint_d3_multi(t[lo:hi], pinf, trans, work, obs[:m], lam[:m], Lam[:m])
         adj_u[j] = lam[start - lo]
         adj_U[j] = Lam[start - lo]
-        # this block's queries: those whose next data point lies in it
-        qlo = qhi
-        if j == 0:
-            qlo = 0
-        else:
-            while qlo > 0 and idx[qlo - 1] >= start - 1:
-                qlo -= 1
-        if qhi > qlo:
-            w = end - lo
-            predict_serial_d3_multi(tq[qlo:qhi], idx[qlo:qhi] - lo, t[lo:end], pinf, trans,
+        # this block's queries: those whose next data point lies in it, that is
+        # t[start - 1] <= tq < t[end]; located among the window t[lo:end], whose
+        # indices are those the predictor reads (the last t <= tq lies in it)
+        qlo = 0 if j == 0 else first_at_or_after(tq, t[start - 1], 0, qhi)
+        w = end - lo
+        a = qlo
+        while a < qhi:
+            b = min(a + LOCATE_CHUNK, qhi)
+            locate_sorted_serial(t[lo:end], tq[a:b], qidx[:b - a])
+            predict_serial_d3_multi(tq[a:b], qidx[:b - a], t[lo:end], pinf, trans,
                          (mf[:w], Pf[:w]), (lam[:w], Lam[:w]),
-                         out_mean[qlo:qhi], out_var[qlo:qhi])
+                         out_mean[a:b], out_var[a:b])
+            a = b
         qhi = qlo

@@ -5,13 +5,42 @@ from __future__ import annotations
 from numba import njit, prange
 
 
+_SORTED_STRIDE = 1024
+
+
 @njit(cache=True, nogil=True)
 def is_sorted(x):
-    """Whether ``x`` is in non-decreasing order."""
-    for i in range(1, x.size):
-        if x[i] < x[i - 1]:
+    """Whether ``x`` is in non-decreasing order.
+
+    Counted without a branch per element, over stretches of ``_SORTED_STRIDE``
+    (a loop that stops at the first descent does not vectorise; this one
+    costs about a tenth of it on a sorted array, and still stops early).
+    """
+    n = x.size
+    for lo in range(1, n, _SORTED_STRIDE):
+        hi = min(lo + _SORTED_STRIDE, n)
+        drops = 0
+        for i in range(lo, hi):
+            drops += x[i] < x[i - 1]
+        if drops:
             return False
     return True
+
+
+@njit(cache=True, nogil=True)
+def first_at_or_after(x, value, lo, hi):
+    """Smallest ``i`` in ``[lo, hi]`` with ``x[i] >= value`` (``hi`` if none).
+
+    Binary search over sorted ``x[lo:hi]``: ``np.searchsorted(x[lo:hi],
+    value, side="left") + lo``.
+    """
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if x[mid] < value:
+            lo = mid + 1
+        else:
+            hi = mid
+    return lo
 
 
 @njit(cache=True)
@@ -107,6 +136,15 @@ def locate_serial(t, tq, idx, known_sorted=False):
     if tq.size:
         _merge_range(t, tq, idx, 0, tq.size)
     return True
+
+
+@njit(cache=True, nogil=True)
+def locate_sorted_serial(t, tq, idx):
+    """:func:`locate` for queries known to be sorted, in the calling thread
+    (``idx`` of ``tq``'s size; for the compiled loops, which locate a few
+    thousand queries at a time into a buffer they reuse)."""
+    if tq.size:
+        _merge_range(t, tq, idx, 0, tq.size)
 
 
 @njit(cache=True, nogil=True)

@@ -26,6 +26,7 @@ from .._loops import search
 from ..kernels.statespace import closed_transition
 from . import kalman_split
 from .base import Evaluation, Method, Posterior, require_noise
+from .fresh import fresh_rows
 from .kalman_sources import RefilteredOutput, StoredOutput
 from .kalman_sweep import Sweep
 
@@ -328,7 +329,12 @@ class KalmanPosterior(Posterior):
         s = self.series
         t, y, err = s.t[lo:hi], s.y[lo:hi], s.err[lo:hi]
         if reverse:  # contiguous reversed copies, times negated
-            t, y, err = -t[::-1], np.ascontiguousarray(y[::-1]), np.ascontiguousarray(err[::-1])
+            # One array for the three, which can be backed by huge pages (fresh.py):
+            # at n = 1e6 each copy alone would fall below numpy's 4 MiB for them.
+            rows = fresh_rows(3, t.size)
+            np.negative(t[::-1], out=rows[0])
+            rows[1], rows[2] = y[::-1], err[::-1]
+            t, y, err = rows
         return t, y, err
 
     def _loops(self, serial):
@@ -475,7 +481,7 @@ class KalmanPosterior(Posterior):
             return self._sweeps[0].latent(t)
         left, right = self._sweeps
         t_join = self.series.t[self.split_at]
-        mean, var = np.empty(t.size), np.empty(t.size)
+        mean, var = fresh_rows(2, t.size)
         if search.is_sorted(t):  # the usual grid: two slices, the right one reversed
             c = int(np.searchsorted(t, t_join, side="right"))
 

@@ -77,9 +77,9 @@ class RefilteredOutput:
                        obs, mf, Pf, first)
         return (obs,), (mf, Pf)
 
-    def run_blocks(self, t, terminal, j_lo, j_hi, tq, idx, mean, var, adj_ckpt):
+    def run_blocks(self, t, terminal, j_lo, j_hi, tq, mean, var, adj_ckpt):
         """Blocks ``j_hi - 1`` down to ``j_lo`` and their sorted queries, in one call
         (``blocks_pass`` in ``_loops/kalman_fast.py``); see :meth:`Sweep.latent`."""
         self._out(0, False)  # make the buffers
         self._blocks_pass(t, self.data, *self._args, self.ckpt, self.block, terminal, j_lo,
-                          j_hi, tq, idx, mean, var, adj_ckpt, self._buffers, self._work)
+                          j_hi, tq, mean, var, adj_ckpt, self._buffers, self._work)

@@ -23,6 +23,7 @@ from __future__ import annotations
 import numpy as np
 
 from .._loops import search
+from .fresh import fresh_rows
 
 
 class Sweep:
@@ -41,10 +42,11 @@ class Sweep:
         Slices of stored arrays, or recomputed from a checkpoint into buffers
         that the next call may overwrite; ``fresh=True`` asks for arrays that
         nothing else will write (they are kept). It may also offer
-        ``run_blocks(t, terminal, j_lo, j_hi, tq, idx, mean, var, ckpt)``:
+        ``run_blocks(t, terminal, j_lo, j_hi, tq, mean, var, ckpt)``:
         the backward pass over blocks ``j_lo .. j_hi - 1`` and their sorted
         queries in one compiled call, as :meth:`latent` would run it block by
-        block (a lean posterior's source, ``RefilteredOutput``).
+        block, locating the queries block by block itself (a lean
+        posterior's source, ``RefilteredOutput``).
     terminal : tuple of ndarray
         The backward quantity at ``t[-1]``: vector (d,) and matrix (d, d).
     smooth : callable
@@ -161,18 +163,22 @@ class Sweep:
         sweeps skip the check).
         """
         n = self.n
+        mean, var = out if out is not None else fresh_rows(2, tq.size)
+        run_blocks = getattr(self.source, "run_blocks", None)
+        if run_blocks is not None and not self.kept:
+            # Sorted queries go through the compiled pass, which locates them
+            # itself: no index array of their length (fresh memory) is made.
+            known_sorted = known_sorted or search.is_sorted(tq)
+            if known_sorted:
+                if tq.size:
+                    self._run_blocks(run_blocks, tq, mean, var)
+                return mean, var
         idx = np.empty(tq.size, dtype=np.int64)
         # idx = np.searchsorted(t, tq, "right") - 1
         if self._serial:
             in_order = search.locate_serial(self.t, tq, idx, known_sorted)
         else:
             in_order = search.locate(self.t, tq, idx)
-        mean, var = out if out is not None else (np.empty(tq.size), np.empty(tq.size))
-        run_blocks = getattr(self.source, "run_blocks", None)
-        if in_order and run_blocks is not None and not self.kept:
-            if tq.size:
-                self._run_blocks(run_blocks, tq, idx, mean, var)
-            return mean, var
         # The queries of each block (that of the smoothed state they need, the next
         # data point's): slices of a sorted grid, else groups of indices.
         jobs = {}
@@ -213,16 +219,18 @@ class Sweep:
                 run(j, sel)
         return mean, var
 
-    def _run_blocks(self, run_blocks, tq, idx, mean, var):
+    def _run_blocks(self, run_blocks, tq, mean, var):
         """Sorted queries through the source's compiled pass over the blocks they need."""
         nb, block = self.starts.size, self.block
-        # query -> block of its next data point (as the jobs of ``latent``)
-        j_lo = min((int(idx[0]) + 1) // block, nb - 1)
-        j_hi = min((int(idx[-1]) + 1) // block, nb - 1) + 1
+        # query -> block of its next data point (as the jobs of ``latent``); the
+        # first and last query's last data point at or before them:
+        first, last = np.searchsorted(self.t, (tq[0], tq[-1]), side="right") - 1
+        j_lo = min((int(first) + 1) // block, nb - 1)
+        j_hi = min((int(last) + 1) // block, nb - 1) + 1
         j_hi = max(j_hi, self._ckpt_from)  # start where the adjoint is known
         # The pass writes the source's buffers: what was cached from them is stale.
         self._last_window = self._cache = None
-        run_blocks(self.t, self.terminal, j_lo, j_hi, tq, idx, mean, var, self.ckpt)
+        run_blocks(self.t, self.terminal, j_lo, j_hi, tq, mean, var, self.ckpt)
         self._ckpt_from = min(self._ckpt_from, j_lo)
 
     def _predict_block(self, j, tq, idx, m_out, v_out):
