@@ -6,7 +6,8 @@ import pytest
 from longwave.methods.fresh import fresh_rows
 
 
-@pytest.mark.parametrize("rows, size", [(2, 10), (3, 1000), (2, 2**18), (3, 500_000), (1, 2**19 + 3)])
+@pytest.mark.parametrize(
+    "rows, size", [(2, 10), (3, 1000), (2, 2**18), (3, 500_000), (1, 2**19 + 3)])
 def test_fresh_rows_shape_layout_and_independence(rows, size):
     a = fresh_rows(rows, size)
     assert a.shape == (rows, size) and a.dtype == np.float64 and a.flags.c_contiguous

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from numba import njit, prange
 
-
 _SORTED_STRIDE = 1024
 
 
