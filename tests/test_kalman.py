@@ -219,3 +219,19 @@ def test_observed_prediction_rejects_error_bars_of_the_wrong_shape():
     pred = post.predict([0.5, 1.5], observed=True, err=[0.1, 0.2])
     latent = post.predict([0.5, 1.5])
     np.testing.assert_allclose(pred.var - latent.var, [0.01, 0.04])
+
+
+@pytest.mark.parametrize("method", [Exact(), Kalman()])
+@pytest.mark.parametrize("value", [np.nan, np.inf, -np.inf])
+def test_prediction_times_must_be_finite_and_the_first_bad_one_is_named(method, value):
+    s = Series([0.0, 1.0, 2.5], [0.1, 0.3, -0.2], err=0.1)
+    post = posterior(Model(Matern32(amplitude=1.0, scale=1.0)), s, method=method)
+    t = np.linspace(-1.0, 4.0, 70_000)  # more than one chunk of the parallel scan
+    t[66_000], t[69_999] = value, np.nan
+    with pytest.raises(ValueError, match=f"t must be finite, found {value} at index 66000"):
+        post.predict(t)
+    shuffled = np.random.default_rng(7).permutation(np.linspace(-1.0, 4.0, 50))
+    # unsorted queries are accepted and mapped back (the order check does not refuse them)
+    np.testing.assert_allclose(post.predict(shuffled).mean,
+                               post.predict(np.sort(shuffled)).mean[np.argsort(np.argsort(shuffled))],
+                               rtol=1e-12, atol=1e-14)

@@ -52,3 +52,30 @@ def test_first_at_or_after_and_sorted_locate_equal_searchsorted(rng):
     idx = np.empty(inside.size, dtype=np.int64)
     search.locate_sorted_serial(window, inside, idx)
     np.testing.assert_array_equal(idx, np.searchsorted(window, inside, side="right") - 1)
+
+
+@pytest.mark.parametrize("n", [0, 1, 5, 65536, 65537, 200_001])
+def test_scan_finds_first_non_finite_and_order(rng, n):
+    # source: numpy (np.isfinite, np.diff) on the same arrays
+    x = np.sort(rng.normal(size=n))
+    assert search.scan(x) == (-1, True)
+    if n < 2:
+        return
+    y = x.copy()
+    y[n // 2] = y[n // 2 - 1] - 1.0
+    assert search.scan(y) == (-1, bool(np.all(np.diff(y) >= 0))) == (-1, False)
+    for bad in (np.nan, np.inf, -np.inf):
+        for where in sorted({0, 1, n // 2, n - 1}):
+            z = x.copy()
+            z[where] = bad
+            z[-1] = bad if where < n - 1 else z[-1]  # a later one too: the first is named
+            first = int(np.flatnonzero(~np.isfinite(z))[0])
+            assert search.scan(z)[0] == first == where
+
+
+@pytest.mark.parametrize("n", [1, 7, 65536, 140_001])
+def test_reverse_series_equals_numpy(rng, n):
+    t, y, err = np.sort(rng.normal(size=n)), rng.normal(size=n), rng.uniform(0.1, 1.0, n)
+    out = np.empty((3, n))
+    search.reverse_series(t, y, err, out)
+    np.testing.assert_array_equal(out, np.stack([-t[::-1], y[::-1], err[::-1]]))

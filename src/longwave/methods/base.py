@@ -13,6 +13,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._loops import search
+
 
 @dataclass(frozen=True)
 class Evaluation:
@@ -87,13 +89,10 @@ class Posterior:
         t = np.asarray(t, dtype=np.float64)
         if t.ndim != 1:
             raise ValueError(f"t must be one-dimensional, got shape {t.shape}")
-        # A sum is finite unless some entry is not (or it overflows): the full
-        # check, which allocates, runs only then.
-        if not np.isfinite(np.sum(t)):
-            bad = np.flatnonzero(~np.isfinite(t))
-            if bad.size:
-                raise ValueError(f"t must be finite, found {t[bad[0]]} at index {bad[0]}")
-        mean, var = self._latent(t)
+        bad, in_order = search.scan(t)  # one pass: finite, and sorted?
+        if bad >= 0:
+            raise ValueError(f"t must be finite, found {t[bad]} at index {bad}")
+        mean, var = self._latent(t, in_order=in_order)
         mean += self.model.mean_value  # _latent's arrays are new: no copy
         if observed:
             e = np.zeros(t.size) if err is None else np.asarray(err, float)
@@ -106,11 +105,12 @@ class Posterior:
             var = var + self.model.noise_variance(e)
         return Prediction(t=t, mean=mean, var=var)
 
-    def _latent(self, t):
-        """Latent mean (without the model mean) and variance at ``t``.
+    def _latent(self, t, *, in_order):
+        """Latent mean (without the model mean) and variance at finite ``t``.
 
-        Must return new arrays that nothing else holds: :meth:`predict` adds
-        the model mean to the first in place.
+        ``in_order`` says whether ``t`` is non-decreasing. Must return new
+        arrays that nothing else holds: :meth:`predict` adds the model mean to
+        the first in place.
         """
         raise NotImplementedError
 

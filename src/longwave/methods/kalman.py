@@ -332,8 +332,7 @@ class KalmanPosterior(Posterior):
             # One array for the three, which can be backed by huge pages (fresh.py):
             # at n = 1e6 each copy alone would fall below numpy's 4 MiB for them.
             rows = fresh_rows(3, t.size)
-            np.negative(t[::-1], out=rows[0])
-            rows[1], rows[2] = y[::-1], err[::-1]
+            search.reverse_series(t, y, err, rows)
             t, y, err = rows
         return t, y, err
 
@@ -476,17 +475,19 @@ class KalmanPosterior(Posterior):
                   self._may_keep, serial=True),
         )
 
-    def _latent(self, t):
+    def _latent(self, t, *, in_order):
         if len(self._sweeps) == 1:
-            return self._sweeps[0].latent(t)
+            return self._sweeps[0].latent(t, known_sorted=in_order)
         left, right = self._sweeps
         t_join = self.series.t[self.split_at]
         mean, var = fresh_rows(2, t.size)
-        if search.is_sorted(t):  # the usual grid: two slices, the right one reversed
+        if in_order:  # the usual grid: two slices, the right one reversed
             c = int(np.searchsorted(t, t_join, side="right"))
 
             def on_right():  # into the outputs in reversed order, then turned round
-                right.latent(-t[c:][::-1], out=(mean[c:], var[c:]), known_sorted=True)
+                tq = fresh_rows(1, t.size - c)[0]
+                np.negative(t[c:][::-1], out=tq)
+                right.latent(tq, out=(mean[c:], var[c:]), known_sorted=True)
                 search.reverse_in_place(mean[c:])
                 search.reverse_in_place(var[c:])
 

@@ -399,7 +399,7 @@ class SparsePosterior(Posterior):
         super().__init__(model, series)
         self._setup, self._solved = setup, solved
 
-    def _latent(self, t, block: int = 8192):
+    def _latent(self, t, *, in_order=None, block: int = 8192):  # order not needed
         st, sv = self._setup, self._solved
         mean, var = np.empty(t.size), np.empty(t.size)
         for lo in range(0, t.size, block):
