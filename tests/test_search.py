@@ -19,8 +19,11 @@ def test_locate_equals_searchsorted(rng, n_query):
     grid = np.linspace(t[0] - 10.0, t[-1] + 10.0, n_query)
     # sorted queries: a grid with data times themselves and points past both ends mixed in
     sorted_q = np.sort(np.concatenate([grid, t[::7], t[-9:], [t[0] - 1e6, t[-1] + 1e6]]))
+    # and with as many queries again past the last time (a forecast), an odd count
+    ahead = np.linspace(t[-1], t[-1] + 50.0, sorted_q.size + 1)
+    forecast = np.sort(np.concatenate([sorted_q, ahead]))
     shuffled = rng.permutation(sorted_q)
-    for tq, expect_sorted in ((sorted_q, True), (shuffled, False)):
+    for tq, expect_sorted in ((sorted_q, True), (forecast, True), (shuffled, False)):
         idx = np.empty(tq.size, dtype=np.int64)
         assert search.locate(t, tq, idx) is expect_sorted
         np.testing.assert_array_equal(idx, np.searchsorted(t, tq, side="right") - 1)

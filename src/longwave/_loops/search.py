@@ -131,26 +131,60 @@ _WINDOW = 8
 
 
 @njit(cache=True, nogil=True)
-def _merge_range(t, tq, idx, lo, hi):
-    """``idx[lo:hi]`` for sorted queries ``tq[lo:hi]``."""
+def _advance(t, x, k):
+    """``k`` grown until ``t[k] > x``, from a ``k`` with ``t[:k] <= x``."""
     n = t.size
-    k = _last_at_or_before(t, tq[lo]) + 1  # t[:k] <= current query
-    for i in range(lo, hi):
-        x = tq[i]
-        if k + _WINDOW <= n:
-            # How many of the next few (sorted) data times are <= x, as a sum of
-            # comparisons: a branch per data point would be mispredicted about
-            # once a query on irregular times, which cost ~3x this whole loop.
-            step = 0
+    if k + _WINDOW > n:  # near the end of t: a step at a time
+        while k < n and t[k] <= x:
+            k += 1
+        return k
+    step = 0
+    for j in range(_WINDOW):
+        step += t[k + j] <= x
+    k += step
+    if step == _WINDOW and k < n and t[k] <= x:  # a longer stretch: rare
+        k = _last_at_or_before(t, x, k) + 1
+    return k
+
+
+@njit(cache=True, nogil=True)
+def _merge_range(t, tq, idx, lo, hi):
+    """``idx[lo:hi]`` for sorted queries ``tq[lo:hi]``.
+
+    Each query advances a position ``k`` (``t[:k] <= query``) by how many of
+    the next ``_WINDOW`` data times it passes, counted as a sum of
+    comparisons: a branch per data point would be mispredicted about once a
+    query on irregular times, which cost ~3x this loop. Each step waits for
+    the last one's ``k``, so the range is walked as two halves at once, whose
+    steps overlap (1.5x faster at n = 1e6).
+    """
+    n = t.size
+    half = (hi - lo) // 2
+    mid = lo + half
+    ka = _last_at_or_before(t, tq[lo]) + 1
+    kb = _last_at_or_before(t, tq[mid]) + 1 if half else ka
+    for i in range(half):
+        xa = tq[lo + i]
+        xb = tq[mid + i]
+        if kb + _WINDOW <= n:  # and so ka + _WINDOW <= n: stream a is behind b
+            sa = 0
+            sb = 0
             for j in range(_WINDOW):
-                step += t[k + j] <= x
-            k += step
-            if step == _WINDOW and k < n and t[k] <= x:  # a longer stretch: rare
-                k = _last_at_or_before(t, x, k) + 1
+                sa += t[ka + j] <= xa
+                sb += t[kb + j] <= xb
+            ka += sa
+            kb += sb
+            if sa == _WINDOW and ka < n and t[ka] <= xa:  # a longer stretch: rare
+                ka = _last_at_or_before(t, xa, ka) + 1
+            if sb == _WINDOW and kb < n and t[kb] <= xb:
+                kb = _last_at_or_before(t, xb, kb) + 1
         else:
-            while k < n and t[k] <= x:
-                k += 1
-        idx[i] = k - 1
+            ka = _advance(t, xa, ka)
+            kb = _advance(t, xb, kb)
+        idx[lo + i] = ka - 1
+        idx[mid + i] = kb - 1
+    if hi - mid > half:  # an odd count: the last query continues stream b
+        idx[hi - 1] = _advance(t, tq[hi - 1], kb) - 1
 
 
 @njit(cache=True, parallel=True)
