@@ -979,8 +979,10 @@ def gen_blocks_pass(code, tr):
         "    any) is read from ``adj_ckpt`` and that of every block run is written",
         "    there. ``tq`` are the sorted queries of these blocks; each block locates",
         "    its own among its times, ``LOCATE_CHUNK`` at a time, so no index array",
-        "    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``",
-        "    of at least ``block + 2`` rows.",
+        "    of the queries' length is made. ``out_var`` may be ``tq`` itself: the",
+        "    queries of a chunk are read before its outputs are written, and those",
+        "    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,",
+        "    lam, Lam)`` of at least ``block + 2`` rows.",
         '    """',
     )
     code.indent()

@@ -5240,8 +5240,10 @@ def blocks_pass_d1_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5301,8 +5303,10 @@ def blocks_pass_d2_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5362,8 +5366,10 @@ def blocks_pass_d3_single(t, data, scal, pinf, trans, ckpt, block, terminal, j_l
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5423,8 +5429,10 @@ def blocks_pass_d1_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5484,8 +5492,10 @@ def blocks_pass_d2_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt
@@ -5545,8 +5555,10 @@ def blocks_pass_d3_multi(t, data, scal, pinf, trans, ckpt, block, terminal, j_lo
     any) is read from ``adj_ckpt`` and that of every block run is written
     there. ``tq`` are the sorted queries of these blocks; each block locates
     its own among its times, ``LOCATE_CHUNK`` at a time, so no index array
-    of the queries' length is made. ``buffers = (obs, mf, Pf, lam, Lam)``
-    of at least ``block + 2`` rows.
+    of the queries' length is made. ``out_var`` may be ``tq`` itself: the
+    queries of a chunk are read before its outputs are written, and those
+    of the blocks still to run lie before it. ``buffers = (obs, mf, Pf,
+    lam, Lam)`` of at least ``block + 2`` rows.
     """
     obs, mf, Pf, lam, Lam = buffers
     ck_m, ck_P = ckpt

@@ -252,17 +252,11 @@ _COPY_CHUNK = 65536
 
 
 @njit(cache=True, parallel=True)
-def reverse_series(t, y, err, out):
-    """``out[0] = -t[::-1]``, ``out[1] = y[::-1]``, ``out[2] = err[::-1]``, in parallel.
-
-    The right half of a split posterior, as the loops filter it (reversed in
-    time); a copy is bound by memory bandwidth, which two threads share
-    better than one.
-    """
+def reverse_negated(t, out):
+    """``out = -t[::-1]``, in parallel: the times of a split posterior's right
+    half, which the loops filter reversed in time (a copy is bound by memory
+    bandwidth, which two threads share better than one)."""
     n = t.size
     for c in prange((n + _COPY_CHUNK - 1) // _COPY_CHUNK):
         for i in range(c * _COPY_CHUNK, min((c + 1) * _COPY_CHUNK, n)):
-            j = n - 1 - i
-            out[0, i] = -t[j]
-            out[1, i] = y[j]
-            out[2, i] = err[j]
+            out[i] = -t[n - 1 - i]

@@ -328,12 +328,13 @@ class KalmanPosterior(Posterior):
     def _data(self, lo=0, hi=None, reverse=False):
         s = self.series
         t, y, err = s.t[lo:hi], s.y[lo:hi], s.err[lo:hi]
-        if reverse:  # contiguous reversed copies, times negated
-            # One array for the three, which can be backed by huge pages (fresh.py):
-            # at n = 1e6 each copy alone would fall below numpy's 4 MiB for them.
-            rows = fresh_rows(3, t.size)
-            search.reverse_series(t, y, err, rows)
-            t, y, err = rows
+        if reverse:
+            # Times negated into a new array (the sweep searches and slices them);
+            # values and errors as reversed views, which the loops read in order:
+            # fresh memory costs more than the arithmetic here (``fresh.py``).
+            back = fresh_rows(1, t.size)[0]
+            search.reverse_negated(t, back)
+            t, y, err = back, y[::-1], err[::-1]
         return t, y, err
 
     def _loops(self, serial):
@@ -485,9 +486,12 @@ class KalmanPosterior(Posterior):
             c = int(np.searchsorted(t, t_join, side="right"))
 
             def on_right():  # into the outputs in reversed order, then turned round
-                tq = fresh_rows(1, t.size - c)[0]
-                np.negative(t[c:][::-1], out=tq)
-                right.latent(tq, out=(mean[c:], var[c:]), known_sorted=True)
+                # Its queries, negated and reversed, are held in its variance
+                # output, which each query's variance overwrites only after the
+                # query has been read (Sweep.latent): no fresh n/2 array.
+                tq = var[c:]
+                search.reverse_negated(t[c:], tq)
+                right.latent(tq, out=(mean[c:], tq), known_sorted=True)
                 search.reverse_in_place(mean[c:])
                 search.reverse_in_place(var[c:])
 

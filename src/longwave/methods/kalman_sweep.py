@@ -158,7 +158,9 @@ class Sweep:
     def latent(self, tq, out=None, known_sorted=False):
         """Posterior mean and variance of the latent process (zero prior mean) at ``tq``.
 
-        ``out``: optional ``(mean, var)`` arrays of ``tq``'s size to write into.
+        ``out``: optional ``(mean, var)`` arrays of ``tq``'s size to write into;
+        ``var`` may be ``tq`` itself: every path reads a query (and its block's
+        queries) before it writes their outputs, and reads no query after.
         ``known_sorted``: the caller has checked that ``tq`` is sorted (serial
         sweeps skip the check).
         """
