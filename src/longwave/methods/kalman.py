@@ -489,8 +489,11 @@ class KalmanPosterior(Posterior):
                 # Its queries, negated and reversed, are held in its variance
                 # output, which each query's variance overwrites only after the
                 # query has been read (Sweep.latent): no fresh n/2 array.
+                # numpy, not the parallel copy: this runs beside the left half's
+                # thread, and numba's default thread pool takes one parallel
+                # region at a time.
                 tq = var[c:]
-                search.reverse_negated(t[c:], tq)
+                np.negative(t[c:][::-1], out=tq)
                 right.latent(tq, out=(mean[c:], tq), known_sorted=True)
                 search.reverse_in_place(mean[c:])
                 search.reverse_in_place(var[c:])
