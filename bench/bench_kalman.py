@@ -12,9 +12,15 @@ plus gradient, and the posterior at n query times (a new posterior and its
 n predictions; n more predictions from it: a lean posterior (d >= 2) runs its
 compiled block pass again, a stored one (d = 1) keeps its smoothed states
 from its second prediction on; and, as ``resmooth``, n more predictions
-from a posterior made with ``keep=False``, which re-smooths every time; and, as ``onepass``,
+from a posterior made with ``keep=False``, which re-smooths every time; as ``onepass``,
 a new posterior and its n predictions built in one sequential pass, where the default
-builds one of 1e5 points or more in two halves on two threads). Measured in the same run,
+builds one of 1e5 points or more in two halves on two threads; and, as ``reused``, a new
+posterior whose n predictions go into output arrays made once and passed as
+``predict(tq, out=...)``, as a pipeline predicting series after series or a long
+grid chunk by chunk does). ``posterior`` includes the first touch of its fresh
+output arrays (16 bytes a query), which the system time of its best run shows:
+on virtual machines that cost depends on what the process freed before, not on
+the code (``methods/fresh.py``). Measured in the same run,
 round-robin, best of ``--repeat`` (the machine is shared, so only the best
 of several runs and ratios taken within one run mean much):
 
@@ -102,20 +108,26 @@ def query_times(series, n):
 def best_of(funcs, repeat):
     """Round-robin timing: run each function once per round, keep each one's best.
 
-    Returns ``{name: seconds}`` of wall time, and the same of CPU time of the
+    Returns ``{name: seconds}`` of wall time, the same of CPU time of the
     process under ``name + "_cpu"`` (all threads; insensitive to other jobs
-    taking the cores away, which wall time is not).
+    taking the cores away, which wall time is not), and under ``name + "_sys"``
+    the system part of the CPU time in the run of best wall time (page faults
+    of fresh memory, mostly).
     """
     best = {name: math.inf for name in funcs}
     best.update({name + "_cpu": math.inf for name in funcs})
     for _ in range(repeat):
         for name, fn in funcs.items():
             gc.collect()
+            s0 = resource.getrusage(resource.RUSAGE_SELF).ru_stime
             c0 = time.process_time()
             t0 = time.perf_counter()
             fn()
-            best[name] = min(best[name], time.perf_counter() - t0)
+            wall = time.perf_counter() - t0
             best[name + "_cpu"] = min(best[name + "_cpu"], time.process_time() - c0)
+            if wall < best[name]:
+                best[name] = wall
+                best[name + "_sys"] = resource.getrusage(resource.RUSAGE_SELF).ru_stime - s0
     return best
 
 
@@ -136,6 +148,7 @@ def time_kalman(name, series, repeat, with_general=False):
     # the same without keeping smoothed states: every prediction re-smooths
     lean = KalmanPosterior(model, series, fast=True, keep=False)
     lean.predict(tq[:1])
+    reused = np.zeros((2, tq.size))  # touched once here, then written by every "reused" run
 
     funcs = {
         "likelihood": lambda: log_marginal_likelihood(model, series, method=Kalman()),
@@ -144,6 +157,9 @@ def time_kalman(name, series, repeat, with_general=False):
         # a new posterior and n predictions (its first prediction runs the backward pass);
         # from n = 1e5 on it is built in two halves on two threads (methods/kalman_split.py)
         "posterior": lambda: posterior(model, series, method=Kalman()).predict(tq),
+        # the same into output arrays made once (predict's out=)
+        "reused": lambda: posterior(model, series, method=Kalman()).predict(
+            tq, out=(reused[0], reused[1])),
         # the same in one sequential pass, for the ratio of the two
         "onepass": lambda: KalmanPosterior(model, series, fast=True, split=False).predict(tq),
         # n more predictions from a posterior that has its checkpoints (from the
@@ -280,19 +296,21 @@ def fmt(x, width=9, digits=1):
     return f"{x:{width}.{digits}f}"
 
 
-COLUMNS = ("likelihood", "gradient", "posterior", "predict")
+COLUMNS = ("likelihood", "gradient", "posterior", "predict", "reused")
 
 
 def print_table(results, sizes):
     head = (f"{'method':8s} {'kernel':8s} {'n':>8s} | {'lml':>8s} {'lml+grad':>8s} "
-            f"{'post.':>8s} {'predict':>8s} | {'lml':>7s} {'lml+grad':>8s} {'post.':>7s} "
-            f"{'predict':>7s} | {'grad/':>6s} {'post/':>6s} {'pred/':>6s} {'lml/':>6s}")
-    head2 = (f"{'':8s} {'':8s} {'':>8s} | {'wall ns/pt, best of runs':35s} | "
-             f"{'CPU ns/pt (all threads), best':32s} | {'lml':>6s} {'lml':>6s} {'lml':>6s} "
-             f"{'base':>6s}")
+            f"{'post.':>8s} {'predict':>8s} {'reused':>8s} | {'lml':>7s} {'lml+grad':>8s} "
+            f"{'post.':>7s} {'predict':>7s} {'reused':>7s} | {'grad/':>6s} {'post/':>6s} "
+            f"{'pred/':>6s} {'reus/':>6s} {'lml/':>6s}")
+    head2 = (f"{'':8s} {'':8s} {'':>8s} | {'wall ns/pt, best of runs':44s} | "
+             f"{'CPU ns/pt (all threads), best':40s} | {'lml':>6s} {'lml':>6s} {'lml':>6s} "
+             f"{'lml':>6s} {'base':>6s}")
     print("\nposterior = a new posterior and n predictions; predict = n more predictions")
-    print("from a posterior that has its checkpoints; ratios of wall times (CPU in brackets")
-    print("in the targets below); base = the hand-tuned Matérn-3/2 loop on the same series")
+    print("from a posterior that has its checkpoints; reused = posterior, into output arrays")
+    print("made once (predict's out=); ratios of wall times (CPU in brackets in the targets")
+    print("below); base = the hand-tuned Matérn-3/2 loop on the same series")
     print(head)
     print(head2)
     print("-" * len(head))
@@ -307,8 +325,8 @@ def print_table(results, sizes):
             if r is None:
                 continue
             base = results["kalman"]["matern32"].get(str(n), {}).get("baseline")
-            ratio = [r["gradient"] / r["likelihood"], r["posterior"] / r["likelihood"],
-                     r["predict"] / r["likelihood"], r["likelihood"] / base if base else None]
+            ratio = [r[c] / r["likelihood"] for c in COLUMNS[1:]]
+            ratio.append(r["likelihood"] / base if base else None)
             rows.append(
                 f"{'kalman':8s} {name:8s} {n:8d} | {cells(r, COLUMNS, 8)} | "
                 f"{cells(r, [c + '_cpu' for c in COLUMNS], 7)} | "
@@ -319,24 +337,24 @@ def print_table(results, sizes):
         if r is None:
             continue
         rows.append(f"{'baseline':8s} {'matern32':8s} {n:8d} | {fmt(r['baseline'], 8)} "
-                    f"{'':26s} | {fmt(r['baseline_cpu'], 7)}")
+                    f"{'':35s} | {fmt(r['baseline_cpu'], 7)}")
         if "general" in r:
             rows.append(f"{'general':8s} {'matern32':8s} {n:8d} | {fmt(r['general'], 8)} "
-                        f"{'':26s} | {fmt(r['general_cpu'], 7)} {'':24s} | {'':20s} "
+                        f"{'':35s} | {fmt(r['general_cpu'], 7)} {'':32s} | {'':27s} "
                         f"{fmt(r['general'] / r['baseline'], 6, 2)}")
     for n, r in sorted(results["exact"].items(), key=lambda kv: int(kv[0])):
         kr = results["kalman"]["matern32"].get(n, {})
         rows.append(
-            f"{'exact':8s} {'matern32':8s} {int(n):8d} | {cells(r, COLUMNS[:3], 8)} {'':8s} | "
-            f"{cells(r, [c + '_cpu' for c in COLUMNS[:3]], 7)} {'':7s} | "
+            f"{'exact':8s} {'matern32':8s} {int(n):8d} | {cells(r, COLUMNS[:3], 8)} {'':17s} | "
+            f"{cells(r, [c + '_cpu' for c in COLUMNS[:3]], 7)} {'':15s} | "
             + (f"Kalman lml {r['likelihood'] / kr['likelihood']:.0f}x faster" if kr else "")
         )
     sk = results.get("sklearn")
     if sk:
         kr = results["kalman"]["matern32"].get(str(sk["n"]), {})
         rows.append(
-            f"{'sklearn':8s} {'matern32':8s} {sk['n']:8d} | {cells(sk, COLUMNS[:3], 8)} {'':8s} | "
-            f"{cells(sk, [c + '_cpu' for c in COLUMNS[:3]], 7)} {'':7s} | "
+            f"{'sklearn':8s} {'matern32':8s} {sk['n']:8d} | {cells(sk, COLUMNS[:3], 8)} {'':17s} | "
+            f"{cells(sk, [c + '_cpu' for c in COLUMNS[:3]], 7)} {'':15s} | "
             + (f"Kalman lml {sk['likelihood'] / kr['likelihood']:.0f}x faster; " if kr else "")
             + f"same lml to {sk['lml_rel_diff']:.0e}"
         )
@@ -362,9 +380,10 @@ def print_targets(results, sizes):
         print(f"  matern32 n=1e6 / baseline loop in this run: "
               f"{r['likelihood'] / r['baseline']:.2f}x "
               f"[{r['likelihood_cpu'] / r['baseline_cpu']:.2f}x]")
+    notes = {"predict": " (from a built posterior)", "reused": " (into reused outputs)"}
     for key, limit, field in (("gradient", 4.0, "gradient"), ("prediction", 2.5, "posterior"),
-                              ("prediction", 2.5, "predict")):
-        label = TARGETS[key] + ("" if field != "predict" else " (from a built posterior)")
+                              ("prediction", 2.5, "predict"), ("prediction", 2.5, "reused")):
+        label = TARGETS[key] + notes.get(field, "")
         for name in KERNELS:
             walls = [k[name][str(n)][field] / k[name][str(n)]["likelihood"] for n in big]
             cpus = [k[name][str(n)][field + "_cpu"] / k[name][str(n)]["likelihood_cpu"]
@@ -377,10 +396,12 @@ def print_targets(results, sizes):
             how = "two halves" if r.get("halves") else "one pass (not split)"
             print(f"  {name} n={n}: new posterior + n predictions, {how} / one pass: "
                   f"{r['posterior'] / r['onepass']:.2f}x wall "
-                  f"[{r['posterior_cpu'] / r['onepass_cpu']:.2f}x CPU]")
+                  f"[{r['posterior_cpu'] / r['onepass_cpu']:.2f}x CPU]; system time of "
+                  f"the best run: {r['posterior_sys'] * n / 1e6:.1f} ms, "
+                  f"{r['reused_sys'] * n / 1e6:.1f} ms into reused outputs")
     if "10000000" in k["matern32"]:
         for name in KERNELS:
-            for field in COLUMNS[:3]:
+            for field in COLUMNS[:3] + COLUMNS[4:]:
                 a = k[name]["10000000"][field] / k[name]["1000000"][field] * 10
                 c = k[name]["10000000"][field + "_cpu"] / k[name]["1000000"][field + "_cpu"] * 10
                 print(f"  {TARGETS['scaling']}: {name} {field}: {a:.1f}x [{c:.1f}x]: "
@@ -423,7 +444,8 @@ def main(argv=None) -> int:
             res = time_kalman(name, series, repeat, with_general=(n == 1_000_000))
             results["kalman"][name][str(n)] = res
             print(f"kalman {name} n={n}: "
-                  + ", ".join(f"{k} {v:.1f}" for k, v in res.items() if "_cpu" not in k),
+                  + ", ".join(f"{k} {v:.1f}" for k, v in res.items()
+                              if not k.endswith(("_cpu", "_sys"))),
                   flush=True)
         if n in (2000, 5000):
             res = time_exact("matern32", series, max(2, args.repeat // 2))

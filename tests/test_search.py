@@ -76,9 +76,22 @@ def test_scan_finds_first_non_finite_and_order(rng, n):
             assert search.scan(z)[0] == first == where
 
 
-@pytest.mark.parametrize("n", [1, 7, 65536, 140_001])
-def test_reverse_negated_equals_numpy(rng, n):
-    t = np.sort(rng.normal(size=n))
-    out = np.empty(n)
-    search.reverse_negated(t, out)
-    np.testing.assert_array_equal(out, -t[::-1])
+def _wide_gap_numpy(t, lo, hi, centre):
+    gaps = t[lo + 1:hi + 1] - t[lo:hi]
+    if not gaps.max() > 0.0:
+        return -1
+    wide = np.flatnonzero(gaps >= 0.5 * gaps.max())
+    return lo + int(wide[np.argmin(np.abs(wide + lo - centre))])
+
+
+@pytest.mark.parametrize("n", [2, 9, 1000, 50_001])
+def test_wide_gap_nearest_equals_numpy(rng, n):
+    # integer times: many equal gaps, so ties (the first is kept, as np.argmin) are exercised
+    t = np.cumsum(rng.integers(0, 4, n)).astype(float)
+    for lo, hi in [(0, n - 1), (n // 3, n - 1 - n // 4), (n // 2, n // 2)]:
+        for centre in [(n - 1) / 2, lo, hi + 0.5]:
+            want = _wide_gap_numpy(t, lo, hi, centre) if hi > lo else -1
+            assert search.wide_gap_nearest(t, lo, hi, centre) == want
+    assert search.wide_gap_nearest(np.zeros(n), 0, n - 1, 1.0) == -1  # no positive gap
+
+

@@ -33,56 +33,83 @@ def is_sorted(x):
 
 
 _SCAN_CHUNK = 65536
+# Below this many chunks the scan runs in the calling thread: waking numba's
+# sleeping workers (passive waiting, ``longwave._config``) took 0.2-0.5 ms on
+# the virtual machines measured, more than one core scanning 1e5 times.
+_SCAN_PARALLEL_CHUNKS = 8
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, nogil=True)
+def _scan_chunk(x, lo, hi):
+    """``(first, drop)`` over ``x[lo:hi]``: index of its first non-finite entry
+    (``x.size`` if none) and its smallest step ``x[i] - x[i - 1]`` (0 if none
+    is negative), for ``i >= max(lo, 1)``."""
+    n = x.size
+    # x - x is 0 for a finite x and NaN otherwise: a NaN in the sums is the
+    # rare case, then found by the slow scan. Four accumulators of each kind:
+    # one would make every step wait for the last (3.2x as long at n = 1e6).
+    s0 = s1 = s2 = s3 = 0.0
+    m0 = m1 = m2 = m3 = 0.0
+    if lo == 0 and hi > 0:
+        s0 = x[0] - x[0]
+    i = max(lo, 1)
+    while i + 4 <= hi:
+        a0, a1, a2, a3, a4 = x[i - 1], x[i], x[i + 1], x[i + 2], x[i + 3]
+        s0 += a1 - a1
+        s1 += a2 - a2
+        s2 += a3 - a3
+        s3 += a4 - a4
+        m0 = min(m0, a1 - a0)
+        m1 = min(m1, a2 - a1)
+        m2 = min(m2, a3 - a2)
+        m3 = min(m3, a4 - a3)
+        i += 4
+    while i < hi:
+        s0 += x[i] - x[i]
+        m0 = min(m0, x[i] - x[i - 1])
+        i += 1
+    first = n
+    if (s0 + s1) + (s2 + s3) != 0.0:
+        for k in range(lo, hi):
+            if not math.isfinite(x[k]):
+                first = k
+                break
+    return first, min(min(m0, m1), min(m2, m3))
+
+
+@njit(cache=True, nogil=True)
 def scan(x):
-    """``(first, in_order)`` of times ``x`` in one parallel pass.
+    """``(first, in_order)`` of times ``x`` in one pass, parallel when long.
 
     ``first`` is the index of the first non-finite entry (-1 if none);
     ``in_order`` whether ``x`` is non-decreasing (meaningful when ``first``
     is -1). A posterior's queries are checked for both before it predicts:
     one pass instead of two over an array that may not fit in the cache.
-    Four accumulators of each kind: one would make every step wait for the
-    last (3.2x as long at n = 1e6).
     """
     n = x.size
     n_chunks = (n + _SCAN_CHUNK - 1) // _SCAN_CHUNK
-    bad = np.full(n_chunks, n, dtype=np.int64)
-    drop = np.zeros(n_chunks)
+    if n_chunks >= _SCAN_PARALLEL_CHUNKS:
+        first, drop = _scan_parallel(x, n_chunks)
+    else:
+        first, drop = _scan_chunk(x, 0, n)
+    return (first if first < n else -1), bool(drop >= 0.0)
+
+
+@njit(cache=True, parallel=True)
+def _scan_parallel(x, n_chunks):
+    """:func:`_scan_chunk` over all of ``x``, a chunk per task. One parallel
+    region only: with ``parallel=True`` numba would run array expressions
+    (``np.full``, ``.min()``) as regions of their own, each waking the workers."""
+    n = x.size
+    bad = np.empty(n_chunks, dtype=np.int64)
+    drop = np.empty(n_chunks)
     for c in prange(n_chunks):
-        lo = c * _SCAN_CHUNK
-        hi = min(lo + _SCAN_CHUNK, n)
-        # x - x is 0 for a finite x and NaN otherwise: a NaN in the sums is the
-        # rare case, then found by the slow scan. Steps x[i] - x[i - 1] for i >= 1.
-        s0 = s1 = s2 = s3 = 0.0
-        m0 = m1 = m2 = m3 = 0.0
-        if lo == 0:
-            s0 = x[0] - x[0]
-        i = max(lo, 1)
-        while i + 4 <= hi:
-            a0, a1, a2, a3, a4 = x[i - 1], x[i], x[i + 1], x[i + 2], x[i + 3]
-            s0 += a1 - a1
-            s1 += a2 - a2
-            s2 += a3 - a3
-            s3 += a4 - a4
-            m0 = min(m0, a1 - a0)
-            m1 = min(m1, a2 - a1)
-            m2 = min(m2, a3 - a2)
-            m3 = min(m3, a4 - a3)
-            i += 4
-        while i < hi:
-            s0 += x[i] - x[i]
-            m0 = min(m0, x[i] - x[i - 1])
-            i += 1
-        drop[c] = min(min(m0, m1), min(m2, m3))
-        if (s0 + s1) + (s2 + s3) != 0.0:
-            for k in range(lo, hi):
-                if not math.isfinite(x[k]):
-                    bad[c] = k
-                    break
-    first = bad.min() if n_chunks else n
-    return (first if first < n else -1), bool(n_chunks == 0 or drop.min() >= 0.0)
+        bad[c], drop[c] = _scan_chunk(x, c * _SCAN_CHUNK, min((c + 1) * _SCAN_CHUNK, n))
+    first, low = n, 0.0
+    for c in range(n_chunks):
+        first = min(first, bad[c])
+        low = min(low, drop[c])
+    return first, low
 
 
 @njit(cache=True, nogil=True)
@@ -250,15 +277,23 @@ def reverse_in_place(x):
         x[i], x[n - 1 - i] = x[n - 1 - i], x[i]
 
 
-_COPY_CHUNK = 65536
-
-
-@njit(cache=True, parallel=True)
-def reverse_negated(t, out):
-    """``out = -t[::-1]``, in parallel: the times of a split posterior's right
-    half, which the loops filter reversed in time (a copy is bound by memory
-    bandwidth, which two threads share better than one)."""
-    n = t.size
-    for c in prange((n + _COPY_CHUNK - 1) // _COPY_CHUNK):
-        for i in range(c * _COPY_CHUNK, min((c + 1) * _COPY_CHUNK, n)):
-            out[i] = -t[n - 1 - i]
+@njit(cache=True, nogil=True)
+def wide_gap_nearest(t, lo, hi, centre):
+    """Among the gaps ``t[j + 1] - t[j]``, ``lo <= j < hi``, at least half the
+    widest, the ``j`` nearest ``centre`` (the first of a tie); -1 when no gap
+    is positive. One pass to find the widest and one to choose, with no
+    temporary arrays (the join of a split posterior, ``kalman_split``)."""
+    widest = 0.0
+    for j in range(lo, hi):
+        g = t[j + 1] - t[j]
+        if g > widest:
+            widest = g
+    if not widest > 0.0:
+        return -1
+    best, best_d = -1, np.inf
+    for j in range(lo, hi):
+        if t[j + 1] - t[j] >= 0.5 * widest:
+            dist = abs(j - centre)
+            if dist < best_d:
+                best, best_d = j, dist
+    return best

@@ -69,7 +69,7 @@ class Posterior:
         self.model = model
         self.series = series
 
-    def predict(self, t, *, observed: bool = False, err=None) -> Prediction:
+    def predict(self, t, *, observed: bool = False, err=None, out=None) -> Prediction:
         """Posterior at times ``t``.
 
         Parameters
@@ -81,6 +81,14 @@ class Posterior:
             than the latent process.
         err : float or array_like of shape (n*,), optional
             Measurement errors of the new observations (default 0).
+        out : tuple of two ndarrays, optional
+            ``(mean, var)``: C-contiguous, writeable float64 arrays of shape
+            ``(n*,)``, overlapping neither ``t`` nor each other, that receive
+            the result and are returned in the :class:`Prediction`. A caller
+            predicting many times (chunks of a long grid, or one series after
+            another) reuses them instead of having new arrays made: first
+            touching fresh memory can cost more than the prediction itself
+            (``methods/fresh.py``).
 
         Returns
         -------
@@ -89,11 +97,13 @@ class Posterior:
         t = np.asarray(t, dtype=np.float64)
         if t.ndim != 1:
             raise ValueError(f"t must be one-dimensional, got shape {t.shape}")
+        if out is not None:
+            out = _check_out(out, t)
         bad, in_order = search.scan(t)  # one pass: finite, and sorted?
         if bad >= 0:
             raise ValueError(f"t must be finite, found {t[bad]} at index {bad}")
-        mean, var = self._latent(t, in_order=in_order)
-        mean += self.model.mean_value  # _latent's arrays are new: no copy
+        mean, var = self._latent(t, in_order=in_order, out=out)
+        mean += self.model.mean_value  # _latent's arrays are new or the caller's: no copy
         if observed:
             e = np.zeros(t.size) if err is None else np.asarray(err, float)
             if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):
@@ -101,18 +111,41 @@ class Posterior:
                     f"err must be a number or an array of shape ({t.size},) matching t, "
                     f"got shape {e.shape}"
                 )
-            e = np.broadcast_to(e, t.shape)
-            var = var + self.model.noise_variance(e)
+            var += self.model.noise_variance(np.broadcast_to(e, t.shape))
         return Prediction(t=t, mean=mean, var=var)
 
-    def _latent(self, t, *, in_order):
+    def _latent(self, t, *, in_order, out=None):
         """Latent mean (without the model mean) and variance at finite ``t``.
 
-        ``in_order`` says whether ``t`` is non-decreasing. Must return new
-        arrays that nothing else holds: :meth:`predict` adds the model mean to
-        the first in place.
+        ``in_order`` says whether ``t`` is non-decreasing. ``out`` is None or
+        a checked ``(mean, var)`` pair (see :meth:`predict`) to write into
+        and return. Without it, must return new arrays that nothing else
+        holds: :meth:`predict` adds the model mean to the first in place.
         """
         raise NotImplementedError
+
+
+def _check_out(out, t):
+    """``out`` of :meth:`Posterior.predict` as a checked ``(mean, var)`` tuple."""
+    if not isinstance(out, (tuple, list)) or len(out) != 2:
+        raise ValueError("out must be a tuple (mean, var) of two arrays, "
+                         f"got {type(out).__name__}")
+    for name, a in zip(("mean", "var"), out):
+        if not isinstance(a, np.ndarray):
+            raise ValueError(f"out: {name} must be a numpy array, got {type(a).__name__}")
+        if a.dtype != np.float64 or a.shape != t.shape:
+            raise ValueError(f"out: {name} must be float64 of shape {t.shape} like t, "
+                             f"got {a.dtype} of shape {a.shape}")
+        if not (a.flags.c_contiguous and a.flags.writeable):
+            raise ValueError(f"out: {name} must be C-contiguous and writeable; "
+                             "pass np.empty(len(t)) or a contiguous slice of one")
+        # A bounds check, not an exact one: an array interleaved with t is refused too.
+        if np.may_share_memory(a, t):
+            raise ValueError(f"out: {name} overlaps t; the prediction would "
+                             "overwrite its own query times")
+    if np.may_share_memory(out[0], out[1]):
+        raise ValueError("out: mean and var overlap; pass two separate arrays")
+    return out[0], out[1]
 
 
 class Method:

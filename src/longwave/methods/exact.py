@@ -116,9 +116,8 @@ class ExactPosterior(Posterior):
         _, self._factor = method._factor(model, series)
         self._alpha = cho_solve(self._factor, series.y - model.mean_value, check_finite=False)
 
-    def _latent(self, t, *, in_order=None, block: int = 4096):  # order not needed
-        mean = np.empty(t.size)
-        var = np.empty(t.size)
+    def _latent(self, t, *, in_order=None, out=None, block: int = 4096):  # order not needed
+        mean, var = out if out is not None else (np.empty(t.size), np.empty(t.size))
         prior_var = self.model.kernel.variance()
         for lo in range(0, t.size, block):
             sl = slice(lo, lo + block)

@@ -332,8 +332,10 @@ class KalmanPosterior(Posterior):
             # Times negated into a new array (the sweep searches and slices them);
             # values and errors as reversed views, which the loops read in order:
             # fresh memory costs more than the arithmetic here (``fresh.py``).
+            # numpy, not a parallel loop: this runs beside the other half's thread,
+            # and numba's default thread pool takes one parallel region at a time.
             back = fresh_rows(1, t.size)[0]
-            search.reverse_negated(t, back)
+            np.negative(t[::-1], out=back)
             t, y, err = back, y[::-1], err[::-1]
         return t, y, err
 
@@ -434,18 +436,31 @@ class KalmanPosterior(Posterior):
         gap (:func:`kalman_split.adjoint`).
         """
         pinf, trans = self._pinf, self._trans
-        s_map = kalman_split.reversal(pinf, trans)
         j = kalman_split.split_index(self.series.t)
-        if s_map is None or j is None:
+        if j is None:
             return None
         n, t = self.series.n, self.series.t
         # The left half's data run one point past it (to the time of its last row).
         data_left = self._data(0, j + 2)
-        data_right = self._data(j, reverse=True)
-        (left, last_left), (right, last_right) = kalman_split.in_two_threads(
-            lambda: self._filter(tuple(x[:-1] for x in data_left), rows=j + 2),
-            lambda: self._filter(tuple(x[:-1] for x in data_right), rows=n - j),
-        )
+
+        def left_half():
+            # The reversal map is needed only at the join: it is found here while
+            # the other thread negates the right half's times, not before both
+            # start. A model without one (not minimal: rare) has then filtered
+            # its right half for nothing and is built in one pass.
+            s_map = kalman_split.reversal(pinf, trans)
+            if s_map is None:
+                return None, (None, None)
+            return s_map, self._filter(tuple(x[:-1] for x in data_left), rows=j + 2)
+
+        def right_half():
+            data = self._data(j, reverse=True)
+            return data[0], self._filter(tuple(x[:-1] for x in data), rows=n - j)
+
+        (s_map, (left, last_left)), (t_right, (right, last_right)) = (
+            kalman_split.in_two_threads(left_half, right_half))
+        if s_map is None:
+            return None
         a = closed_transition(*trans, np.asarray(t[j + 1] - t[j]))
 
         def across_gap(m, P):  # one prediction step over the gap
@@ -472,16 +487,16 @@ class KalmanPosterior(Posterior):
         return (
             Sweep(data_left[0], left, left_end, *self._loops(serial=True), self._block,
                   self._may_keep, serial=True),
-            Sweep(data_right[0], right, right_end, *self._loops(serial=True), self._block,
+            Sweep(t_right, right, right_end, *self._loops(serial=True), self._block,
                   self._may_keep, serial=True),
         )
 
-    def _latent(self, t, *, in_order):
+    def _latent(self, t, *, in_order, out=None):
         if len(self._sweeps) == 1:
-            return self._sweeps[0].latent(t, known_sorted=in_order)
+            return self._sweeps[0].latent(t, out=out, known_sorted=in_order)
         left, right = self._sweeps
         t_join = self.series.t[self.split_at]
-        mean, var = fresh_rows(2, t.size)
+        mean, var = out if out is not None else fresh_rows(2, t.size)
         if in_order:  # the usual grid: two slices, the right one reversed
             c = int(np.searchsorted(t, t_join, side="right"))
 

@@ -399,9 +399,9 @@ class SparsePosterior(Posterior):
         super().__init__(model, series)
         self._setup, self._solved = setup, solved
 
-    def _latent(self, t, *, in_order=None, block: int = 8192):  # order not needed
+    def _latent(self, t, *, in_order=None, out=None, block: int = 8192):  # order not needed
         st, sv = self._setup, self._solved
-        mean, var = np.empty(t.size), np.empty(t.size)
+        mean, var = out if out is not None else (np.empty(t.size), np.empty(t.size))
         for lo in range(0, t.size, block):
             sl = slice(lo, lo + block)
             a = st.linv @ st.blocks.block(st.z, t[sl], np.ones(t[sl].size))

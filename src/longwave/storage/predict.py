@@ -136,14 +136,18 @@ def _write(posterior, grid, group, chunk, observed) -> int:
         ds = _h5.create_dataset(group, name, np.float64, kind="grid", chunk=storage_chunk)
         ds.resize((n,))
         out[name] = ds
+    # One pair of output arrays serves every chunk: fresh memory is slow to
+    # touch (``methods/fresh.py``), and each chunk is written out before the next.
+    buffers = np.empty((2, min(chunk, n)))
     for a in range(0, n, chunk):
         b = min(a + chunk, n)
         t = grid.chunk(a, b) if uniform else np.asarray(grid[a:b], dtype=np.float64)
-        pred = posterior.predict(t, observed=observed)
+        mean, var = buffers[0, :b - a], buffers[1, :b - a]
+        posterior.predict(t, observed=observed, out=(mean, var))
         if not uniform:
             out["t"][a:b] = t
-        out["mean"][a:b] = pred.mean
-        out["std"][a:b] = pred.std
+        out["mean"][a:b] = mean
+        out["std"][a:b] = np.sqrt(var, out=var)
     attrs = {"longwave_format": "prediction", "format_version": 1, "n": n,
              "observed": bool(observed), "grid": "uniform" if uniform else "explicit",
              "longwave_version": _h5.package_version()}
