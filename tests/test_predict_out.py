@@ -54,6 +54,8 @@ def test_out_receives_the_same_prediction(rng, name, observed, ordered):
     ref = post.predict(tq, observed=observed, err=err)
     # Filled with garbage first: a path that read its outputs before writing them would show.
     mean, var = np.full(tq.size, np.nan), np.full(tq.size, -1e300)
+    # A new posterior: its first prediction runs the backward pass (Kalman's checkpoints)
+    post = POSTERIORS[name](model, series)
     got = post.predict(tq, observed=observed, err=err, out=(mean, var))
     assert got.mean is mean and got.var is var
     np.testing.assert_array_equal(mean, ref.mean)
@@ -111,3 +113,42 @@ def test_bad_out_leaves_the_arrays_untouched(small_posterior):
     with pytest.raises(ValueError, match="overlaps t"):
         small_posterior.predict(mean, out=(mean, var))  # t is the mean array itself
     np.testing.assert_array_equal(var, 7.0)
+
+
+def test_bad_err_leaves_the_arrays_untouched(small_posterior):
+    tq = np.linspace(0.0, 50.0, 10)
+    mean, var = np.full(10, 7.0), np.full(10, 7.0)
+    with pytest.raises(ValueError, match="err must be a number or an array of shape \\(10,\\)"):
+        small_posterior.predict(tq, observed=True, err=np.ones(9), out=(mean, var))
+    np.testing.assert_array_equal(mean, 7.0)
+    np.testing.assert_array_equal(var, 7.0)
+
+
+def test_err_that_is_an_output_array_is_read_before_it_is_overwritten(small_posterior):
+    # the noise added is that of the errors given, not of the latent variance
+    tq = np.linspace(0.0, 50.0, 10)
+    err = np.full(10, 0.3)
+    ref = small_posterior.predict(tq, observed=True, err=err.copy())
+    mean, var = np.empty(10), err
+    got = small_posterior.predict(tq, observed=True, err=err, out=(mean, var))
+    np.testing.assert_array_equal(got.var, ref.var)
+
+
+@pytest.mark.parametrize("side", ["left", "right"])
+def test_split_posterior_with_every_query_on_one_side(rng, side):
+    # Exact (dense) is the reference; one half's slices of the outputs are empty
+    series = hard_series(rng, 900, scale=5.0, amplitude=1.0)
+    model = _model()
+    post = KalmanPosterior(model, series, fast=True, split=True, block=64)
+    assert post.split_at is not None
+    t_join = series.t[post.split_at]
+    if side == "left":
+        lo, hi = series.t[0] - 30.0, t_join
+    else:
+        lo, hi = t_join + 1e-9, series.t[-1] + 30.0
+    tq = np.linspace(lo, hi, 300)
+    mean, var = np.full(300, np.nan), np.full(300, np.nan)
+    post.predict(tq, out=(mean, var))
+    ref = lw.posterior(model, series, method=Exact()).predict(tq)
+    np.testing.assert_allclose(mean, ref.mean, rtol=1e-8, atol=1e-8)
+    np.testing.assert_allclose(var, ref.var, rtol=1e-8, atol=1e-10)

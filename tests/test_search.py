@@ -57,7 +57,8 @@ def test_first_at_or_after_and_sorted_locate_equal_searchsorted(rng):
     np.testing.assert_array_equal(idx, np.searchsorted(window, inside, side="right") - 1)
 
 
-@pytest.mark.parametrize("n", [0, 1, 5, 65536, 65537, 200_001])
+# 8 * 65536 + 3 points: 9 chunks, the parallel branch (search._SCAN_PARALLEL_CHUNKS)
+@pytest.mark.parametrize("n", [0, 1, 5, 65536, 65537, 200_001, 8 * 65536 + 3])
 def test_scan_finds_first_non_finite_and_order(rng, n):
     # source: numpy (np.isfinite, np.diff) on the same arrays
     x = np.sort(rng.normal(size=n))
@@ -67,6 +68,10 @@ def test_scan_finds_first_non_finite_and_order(rng, n):
     y = x.copy()
     y[n // 2] = y[n // 2 - 1] - 1.0
     assert search.scan(y) == (-1, bool(np.all(np.diff(y) >= 0))) == (-1, False)
+    if n > 3 * 65536:  # a descent exactly across the boundary of two chunks
+        y = x.copy()
+        y[3 * 65536] = y[3 * 65536 - 1] - 1.0
+        assert search.scan(y) == (-1, False)
     for bad in (np.nan, np.inf, -np.inf):
         for where in sorted({0, 1, n // 2, n - 1}):
             z = x.copy()

@@ -45,7 +45,8 @@ class Prediction:
     t, mean, var, std : ndarray of shape (n*,)
         Query times (in the order given), posterior mean, variance and
         standard deviation. Of the latent process ``mean + f`` by default, or
-        of a new observation when requested (variance plus noise).
+        of a new observation when requested (variance plus noise). ``std`` is
+        a new array at each access.
     """
 
     t: np.ndarray
@@ -81,29 +82,31 @@ class Posterior:
             than the latent process.
         err : float or array_like of shape (n*,), optional
             Measurement errors of the new observations (default 0).
-        out : tuple of two ndarrays, optional
+        out : tuple (or list) of two ndarrays, optional
             ``(mean, var)``: C-contiguous, writeable float64 arrays of shape
             ``(n*,)``, overlapping neither ``t`` nor each other, that receive
             the result and are returned in the :class:`Prediction`. A caller
             predicting many times (chunks of a long grid, or one series after
             another) reuses them instead of having new arrays made: first
             touching fresh memory can cost more than the prediction itself
-            (``methods/fresh.py``).
+            (``methods/fresh.py``). The returned :class:`Prediction` holds
+            these arrays, so the next prediction into them overwrites it.
+            Nothing is written when a check fails; an error raised while the
+            loops run (none is expected) can leave them partly written.
 
         Returns
         -------
         Prediction
+            ``mean`` and ``var`` (the caller's arrays when ``out`` is given);
+            ``std`` is computed from ``var`` into a new array at each access
+            (with ``out``, ``np.sqrt(var, out=...)`` avoids that).
         """
         t = np.asarray(t, dtype=np.float64)
         if t.ndim != 1:
             raise ValueError(f"t must be one-dimensional, got shape {t.shape}")
+        # Every check comes before anything is written into ``out``.
         if out is not None:
             out = _check_out(out, t)
-        bad, in_order = search.scan(t)  # one pass: finite, and sorted?
-        if bad >= 0:
-            raise ValueError(f"t must be finite, found {t[bad]} at index {bad}")
-        mean, var = self._latent(t, in_order=in_order, out=out)
-        mean += self.model.mean_value  # _latent's arrays are new or the caller's: no copy
         if observed:
             e = np.zeros(t.size) if err is None else np.asarray(err, float)
             if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):
@@ -111,6 +114,14 @@ class Posterior:
                     f"err must be a number or an array of shape ({t.size},) matching t, "
                     f"got shape {e.shape}"
                 )
+            if out is not None and any(np.may_share_memory(e, o) for o in out):
+                e = e.copy()  # the outputs are written before the noise is added
+        bad, in_order = search.scan(t)  # one pass: finite, and sorted?
+        if bad >= 0:
+            raise ValueError(f"t must be finite, found {t[bad]} at index {bad}")
+        mean, var = self._latent(t, in_order=in_order, out=out)
+        mean += self.model.mean_value  # _latent's arrays are new or the caller's: no copy
+        if observed:
             var += self.model.noise_variance(np.broadcast_to(e, t.shape))
         return Prediction(t=t, mean=mean, var=var)
 

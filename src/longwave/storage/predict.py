@@ -91,7 +91,9 @@ def predict_to_hdf5(posterior, grid, path_or_group, *, chunk: int = 1 << 20,
     Parameters
     ----------
     posterior : longwave posterior
-        Anything with ``predict(t, observed=...)`` returning ``.mean`` and ``.std``.
+        Anything with ``predict(t, observed=..., out=(mean, var))`` returning
+        ``.mean`` and ``.var`` (every longwave posterior). Its results are
+        written from what it returns, so one that ignores ``out`` still works.
     grid : (start, stop, n), Grid, array_like of shape (n,) or h5py.Dataset of shape (n,)
         A ``(start, stop, n)`` triple means ``numpy.linspace(start, stop, n)``,
         generated chunk by chunk and stored as attributes only.
@@ -143,11 +145,12 @@ def _write(posterior, grid, group, chunk, observed) -> int:
         b = min(a + chunk, n)
         t = grid.chunk(a, b) if uniform else np.asarray(grid[a:b], dtype=np.float64)
         mean, var = buffers[0, :b - a], buffers[1, :b - a]
-        posterior.predict(t, observed=observed, out=(mean, var))
+        pred = posterior.predict(t, observed=observed, out=(mean, var))
         if not uniform:
             out["t"][a:b] = t
-        out["mean"][a:b] = mean
-        out["std"][a:b] = np.sqrt(var, out=var)
+        out["mean"][a:b] = pred.mean
+        # pred.var is the buffer (when out= was honoured), free to take the std
+        out["std"][a:b] = np.sqrt(pred.var, out=pred.var)
     attrs = {"longwave_format": "prediction", "format_version": 1, "n": n,
              "observed": bool(observed), "grid": "uniform" if uniform else "explicit",
              "longwave_version": _h5.package_version()}
