@@ -186,6 +186,25 @@ def test_an_error_in_either_thread_is_raised():
     assert split.in_two_threads(lambda: 1, lambda: 2) == (1, 2)
 
 
+def test_a_failing_first_half_waits_for_the_second_and_names_both():
+    import time
+
+    finished = []
+
+    def slow():
+        time.sleep(0.05)
+        finished.append(True)
+        raise RuntimeError("right half failed")
+
+    def fail():
+        raise ValueError("left half failed")
+
+    with pytest.raises(ValueError, match="left half failed") as info:
+        split.in_two_threads(fail, slow)
+    assert finished == [True]  # not returned while the thread could still write
+    assert isinstance(info.value.__cause__, RuntimeError)
+
+
 @SETTINGS
 @given(problems())
 def test_split_equals_exact_within_conditioning(problem):

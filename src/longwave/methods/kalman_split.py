@@ -234,8 +234,29 @@ def in_two_threads(first, second):
     _thread.start_new_thread(run, ())
     try:
         result = first()
-    finally:
-        done.acquire()  # the thread has finished (or failed)
+    except BaseException as exc:
+        _wait(done)
+        if "error" in box:  # both failed: say so, the caller's first
+            raise exc from box["error"]
+        raise
+    _wait(done)
     if "error" in box:
         raise box["error"]
     return result, box["value"]
+
+
+def _wait(done):
+    """Acquire ``done`` even through a KeyboardInterrupt, then re-raise it.
+
+    The thread may be writing into the caller's output arrays: returning
+    before it has finished would hand them back while they still change.
+    """
+    interrupted = None
+    while True:
+        try:
+            done.acquire()
+            break
+        except KeyboardInterrupt as exc:
+            interrupted = exc
+    if interrupted is not None:
+        raise interrupted
