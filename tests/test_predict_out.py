@@ -152,3 +152,16 @@ def test_split_posterior_with_every_query_on_one_side(rng, side):
     ref = lw.posterior(model, series, method=Exact()).predict(tq)
     np.testing.assert_allclose(mean, ref.mean, rtol=1e-8, atol=1e-8)
     np.testing.assert_allclose(var, ref.var, rtol=1e-8, atol=1e-10)
+
+
+def test_observed_without_err_adds_only_the_excess_noise(small_posterior):
+    # common practice: a new observation's variance is the latent variance plus its noise
+    tq = np.linspace(0.0, 50.0, 10)
+    latent = small_posterior.predict(tq)
+    excess = small_posterior.model.excess_variance
+    assert excess > 0.0
+    mean, var = np.empty(10), np.empty(10)
+    for out in (None, (mean, var)):
+        got = small_posterior.predict(tq, observed=True, out=out)
+        np.testing.assert_allclose(got.var, latent.var + excess, rtol=1e-14)
+        np.testing.assert_array_equal(got.mean, latent.mean)

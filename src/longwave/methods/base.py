@@ -107,22 +107,14 @@ class Posterior:
         # Every check comes before anything is written into ``out``.
         if out is not None:
             out = _check_out(out, t)
-        if observed:
-            e = np.zeros(t.size) if err is None else np.asarray(err, float)
-            if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):
-                raise ValueError(
-                    f"err must be a number or an array of shape ({t.size},) matching t, "
-                    f"got shape {e.shape}"
-                )
-            if out is not None and any(np.may_share_memory(e, o) for o in out):
-                e = e.copy()  # the outputs are written before the noise is added
+        e = _observation_errors(err, t, out) if observed else None
         bad, in_order = search.scan(t)  # one pass: finite, and sorted?
         if bad >= 0:
             raise ValueError(f"t must be finite, found {t[bad]} at index {bad}")
         mean, var = self._latent(t, in_order=in_order, out=out)
         mean += self.model.mean_value  # _latent's arrays are new or the caller's: no copy
-        if observed:
-            var += self.model.noise_variance(np.broadcast_to(e, t.shape))
+        if e is not None:
+            var += self.model.noise_variance(e)  # a number or one per query: broadcast
         return Prediction(t=t, mean=mean, var=var)
 
     def _latent(self, t, *, in_order, out=None):
@@ -134,6 +126,23 @@ class Posterior:
         holds: :meth:`predict` adds the model mean to the first in place.
         """
         raise NotImplementedError
+
+
+def _observation_errors(err, t, out):
+    """``err`` of :meth:`Posterior.predict` as a 0-d or ``t``-shaped array.
+
+    Copied when it shares memory with an output, which is written before the
+    noise is added.
+    """
+    e = np.asarray(0.0 if err is None else err, dtype=float)
+    if e.ndim > 1 or (e.ndim == 1 and e.size != t.size):
+        raise ValueError(
+            f"err must be a number or an array of shape ({t.size},) matching t, "
+            f"got shape {e.shape}"
+        )
+    if out is not None and any(np.may_share_memory(e, o) for o in out):
+        e = e.copy()
+    return e
 
 
 def _check_out(out, t):
