@@ -409,22 +409,25 @@ def print_targets(results, sizes):
     # (Python, a second thread, the join of a split posterior) still show, so
     # its ratios are printed beside them as information.
     judged = [n for n in big if n >= 1_000_000]
+    shown = [n for n in big if n < 1_000_000]
+
+    def ratio(name, n, field, cpu=""):  # a figure over the likelihood, wall or CPU
+        r = k[name][str(n)]
+        return r[field + cpu] / r["likelihood" + cpu]
+
     for key, limit, field in (("gradient", 4.0, "gradient"), ("prediction", 2.5, "posterior"),
                               ("prediction", 2.5, "predict"), ("prediction", 2.5, "reused")):
         label = TARGETS[key] + notes.get(field, "")
         for name in KERNELS:
-            def ratios(ns, cpu="", name=name, field=field):
-                return [k[name][str(n)][field + cpu] / k[name][str(n)]["likelihood" + cpu]
-                        for n in ns]
-            small = [n for n in big if n < 1_000_000]
-            info = (f"; n=1e5: {ratios(small)[0]:.2f}x [{ratios(small, '_cpu')[0]:.2f}x]"
-                    if small else "")
+            info = "".join(f"; n={n}: {ratio(name, n, field):.2f}x "
+                           f"[{ratio(name, n, field, '_cpu'):.2f}x]" for n in shown)
             if not judged:
                 print(f"  {label}: {name}{info} (no n >= 1e6 in this run: not judged)")
                 continue
-            walls, cpus = ratios(judged), ratios(judged, "_cpu")
-            print(f"  {label}: {name}, worst n>=1e6: {max(walls):.2f}x [{max(cpus):.2f}x]: "
-                  f"{_verdict(max(walls), limit)} [{_verdict(max(cpus), limit)}]{info}")
+            wall = max(ratio(name, n, field) for n in judged)
+            cpu = max(ratio(name, n, field, "_cpu") for n in judged)
+            print(f"  {label}: {name}, worst n>=1e6: {wall:.2f}x [{cpu:.2f}x]: "
+                  f"{_verdict(wall, limit)} [{_verdict(cpu, limit)}]{info}")
     for name in KERNELS:
         for n in big:
             r = k[name][str(n)]
@@ -474,9 +477,8 @@ def main(argv=None) -> int:
         time_kalman(name, make_series(2000, seed=1), 1, with_general=True)
     for n in sizes + [2000, 5000]:
         series = make_series(n)
-        repeat = args.repeat  # at 1e7 too: its ratios are as noisy as any
-        for name in KERNELS:
-            res = time_kalman(name, series, repeat, with_general=(n == 1_000_000))
+        for name in KERNELS:  # --repeat at every n: the ratios at 1e7 are as noisy as any
+            res = time_kalman(name, series, args.repeat, with_general=(n == 1_000_000))
             results["kalman"][name][str(n)] = res
             print(f"kalman {name} n={n}: "
                   + ", ".join(f"{k} {v:.1f}" for k, v in res.items()
